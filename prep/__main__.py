@@ -1,0 +1,3 @@
+from prep.cli import main
+
+main()

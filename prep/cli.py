@@ -1,0 +1,125 @@
+"""The `prep` command line. Thin: parse, call the library, print, map errors to exit codes.
+
+Exit codes: 0 success; 1 a data problem or failed run; 2 a pipeline-file or usage error.
+Errors print one line to stderr (``Error: …``); ``--debug`` adds the traceback and its cause.
+"""
+
+from __future__ import annotations
+
+import sys
+import traceback
+from pathlib import Path
+from typing import Any
+
+import click
+
+from prep import __version__
+from prep.errors import PrepError
+
+
+def _fail(exc: BaseException, debug: bool, code: int) -> None:
+    if debug:
+        traceback.print_exception(exc, file=sys.stderr)
+    message = str(exc) if isinstance(exc, PrepError) else f"unexpected {type(exc).__name__}: {exc}"
+    click.echo(f"Error: {message}", err=True)
+    if not debug and not isinstance(exc, PrepError):
+        click.echo("This is probably a bug in prep; run again with --debug to see the traceback.", err=True)
+    sys.exit(code)
+
+
+def _guard(debug: bool, fn, *args, **kwargs):
+    try:
+        return fn(*args, **kwargs)
+    except PrepError as exc:
+        _fail(exc, debug, exc.exit_code)
+    except KeyboardInterrupt:
+        click.echo("Interrupted; the previous output folder is unchanged.", err=True)
+        sys.exit(130)
+    except Exception as exc:  # anything else is a bug: one line, traceback with --debug
+        _fail(exc, debug, 1)
+
+
+class _Printer:
+    """Prints progress lines to stderr as the runner reports them."""
+
+    def __init__(self, quiet: bool) -> None:
+        self.quiet = quiet
+
+    def __call__(self, event: str, **data: Any) -> None:
+        if self.quiet:
+            return
+        if event == "read":
+            extra = f" ({data['unreadable']:,} unreadable)" if data["unreadable"] else ""
+            line = f"  read   {data['source']:<22} {data['rows']:>10,} rows{extra}"
+            click.echo(f"{line:<60} {data['seconds']:7.2f} s", err=True)
+        elif event == "step":
+            line = f"  step   {data['step']:<22} {data['rows_in']:>10,} -> {data['rows_out']:,}"
+            click.echo(f"{line:<60} {data['seconds']:7.2f} s", err=True)
+        elif event == "split":
+            rows = data["rows"]
+            line = "  split  " + ", ".join(f"{k} {v:,}" for k, v in rows.items())
+            click.echo(f"{line:<60} {data['seconds']:7.2f} s", err=True)
+        elif event == "written":
+            click.echo(f"  wrote  {data['output']}", err=True)
+
+
+debug_option = click.option("--debug", is_flag=True, help="Show the full traceback and cause of an error.")
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="prep")
+def cli() -> None:
+    """Turn raw ticket exports into clean, reproducible train/validation/test splits.
+
+    A pipeline file (YAML) names the sources, the cleaning steps and the split; `prep run`
+    writes Parquet splits, a ledger of every row set aside and why, and a data card.
+    """
+
+
+@cli.command()
+@click.argument("pipeline", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), help="Output folder (overrides `output` in the pipeline file).")
+@click.option("--quiet", "-q", is_flag=True, help="Print only the final accounting line.")
+@debug_option
+def run(pipeline: Path, out: Path | None, quiet: bool, debug: bool) -> None:
+    """Run PIPELINE end to end and write the outputs.
+
+    Ends with the accounting line: rows read = train + validation + test + set aside.
+    Exit codes: 0 ok, 1 data problem, 2 pipeline-file or usage error.
+    """
+    from prep.pipeline import load_pipeline
+    from prep.run import run_pipeline
+
+    loaded = _guard(debug, load_pipeline, pipeline)
+    if not quiet:
+        click.echo(f"prep {__version__}: {loaded.dataset} ({pipeline})", err=True)
+    result = _guard(debug, run_pipeline, loaded, out=out, report=_Printer(quiet))
+    if not quiet:
+        click.echo(f"  done in {result.seconds:.1f} s", err=True)
+    click.echo(result.accounting_line())
+
+
+@cli.command()
+@click.argument("pipeline", type=click.Path(dir_okay=False, path_type=Path))
+@debug_option
+def check(pipeline: Path, debug: bool) -> None:
+    """Validate PIPELINE and the columns of every source, without running.
+
+    Reads only file headers (or Parquet schemas). Exit 0 if the run could start, 2 otherwise.
+    """
+    from prep.pipeline import load_pipeline
+    from prep.check import check_sources
+
+    loaded = _guard(debug, load_pipeline, pipeline)
+    lines = _guard(debug, check_sources, loaded)
+    for line in lines:
+        click.echo(line)
+    click.echo(f"{pipeline}: ok ({len(loaded.sources)} sources, {len(loaded.steps)} steps)")
+
+
+def main() -> None:
+    cli(prog_name="prep")
+
+
+if __name__ == "__main__":
+    main()

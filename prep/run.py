@@ -1,0 +1,267 @@
+"""The runner: reads every source, applies the steps in order, splits, and writes the outputs.
+
+It owns the ledger, the timings and the progress events; steps only transform the table.
+Every row read ends in exactly one split or in the ledger (checked before anything is written).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import polars as pl
+
+from prep import __version__
+from prep.config import to_plain
+from prep.errors import DataError, PipelineError
+from prep.facts import RunFacts, SourceFacts, SplitFileFacts, StepFacts
+from prep.ledger import Ledger, Reason, check_accounting
+from prep.pipeline import PROVENANCE_COLUMNS, Pipeline, Source
+from prep.steps import step_module
+from prep.steps.base import StepContext
+from prep.write import OutputFolder, check_output_folder, dumps_json, sha256_file
+
+SPLITS = ("train", "validation", "test")
+
+# A progress callback receives an event name and its facts; the CLI prints them, tests collect them.
+Reporter = Callable[..., None]
+
+
+def _quiet(event: str, **data: Any) -> None:
+    return None
+
+
+@dataclass
+class StepTiming:
+    name: str
+    rows_in: int
+    rows_out: int
+    seconds: float
+
+
+@dataclass
+class RunResult:
+    output: Path
+    rows_read: int
+    split_rows: dict[str, int]
+    set_aside: int
+    timings: list[StepTiming] = field(default_factory=list)
+    seconds: float = 0.0
+    card: dict[str, Any] = field(default_factory=dict)
+
+    def accounting_line(self) -> str:
+        parts = " + ".join(f"{name} {self.split_rows[name]:,}" for name in SPLITS)
+        ok = self.rows_read == sum(self.split_rows.values()) + self.set_aside
+        return f"rows read {self.rows_read:,} {'=' if ok else '≠'} {parts} + set aside {self.set_aside:,}"
+
+
+def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger) -> tuple[pl.DataFrame, SourceFacts]:
+    from prep.read import read_source
+
+    result = read_source(source, on_unreadable=pipeline.on_unreadable)
+    present = set(result.table.columns)
+    for canon, column in source.columns.items():
+        if column not in present:
+            have = ", ".join(f"`{c}`" for c in result.table.columns if c != "source_row")
+            raise PipelineError(
+                f"column `{column}` is not in `{source.path_text}` (its columns: {have}).",
+                file=str(pipeline.path),
+                key=f"sources[{index}].columns.{canon}",
+            )
+    frame = result.table.select(
+        pl.concat_str([pl.lit(source.name + ":"), pl.col("source_row").cast(pl.String)]).alias("row_id"),
+        pl.lit(source.name, dtype=pl.String).alias("source"),
+        pl.col("source_row").cast(pl.Int64),
+        *[pl.col(column).cast(pl.String).alias(canon) for canon, column in source.columns.items()],
+    )
+    bad = result.unreadable
+    if bad.height:
+        rows = bad.select(
+            pl.concat_str([pl.lit(source.name + ":"), pl.col("source_row").cast(pl.String)]).alias("row_id"),
+            pl.lit(source.name, dtype=pl.String).alias("source"),
+            pl.col("source_row").cast(pl.Int64),
+        )
+        detail = bad.select(
+            pl.when(pl.col("line").is_not_null())
+            .then(pl.concat_str([pl.lit("line "), pl.col("line").cast(pl.String), pl.lit(": "), pl.col("detail")]))
+            .otherwise(pl.col("detail"))
+        ).to_series()
+        ledger.add(rows, step="read", reason=Reason.UNREADABLE, detail=detail)
+    facts = SourceFacts(
+        name=source.name,
+        path=source.path_text,
+        format=source.format,
+        compression=source.compression,
+        encoding=result.encoding,
+        rows_read=result.rows_read,
+        rows_unreadable=bad.height,
+        sha256=sha256_file(source.path),
+        bytes=source.path.stat().st_size,
+    )
+    return frame, facts
+
+
+def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) -> tuple[pl.DataFrame, list[SourceFacts]]:
+    """All sources as one canonical table (provenance first, then canonical columns), plus facts per source."""
+    frames, facts = [], []
+    for i, source in enumerate(pipeline.sources):
+        t0 = time.perf_counter()
+        frame, f = _read_source(pipeline, i, source, ledger)
+        frames.append(frame)
+        facts.append(f)
+        report("read", source=source.name, rows=f.rows_read, unreadable=f.rows_unreadable, seconds=time.perf_counter() - t0)
+    columns = [*PROVENANCE_COLUMNS, *pipeline.canonical_columns]
+    aligned = []
+    for frame in frames:
+        missing = [c for c in columns if c not in frame.columns]
+        aligned.append(frame.with_columns(pl.lit(None, dtype=pl.String).alias(c) for c in missing).select(columns))
+    table = pl.concat(aligned, how="vertical") if aligned else pl.DataFrame(schema={c: pl.String for c in columns})
+    return table, facts
+
+
+def apply_steps(
+    pipeline: Pipeline, table: pl.DataFrame, ledger: Ledger, report: Reporter = _quiet
+) -> tuple[pl.DataFrame, list[StepFacts], list[StepTiming], dict[str, pl.DataFrame]]:
+    step_facts: list[StepFacts] = []
+    timings: list[StepTiming] = []
+    outputs: dict[str, pl.DataFrame] = {}
+    for spec in pipeline.steps:
+        module = step_module(spec.name)
+        ctx = StepContext(
+            step=spec.name,
+            label=pipeline.label,
+            text=pipeline.text,
+            ledger=ledger,
+            split_fractions=pipeline.split.fractions,
+            pipeline_dir=pipeline.folder,
+            seed=pipeline.split.seed,
+            group=pipeline.split.group,
+        )
+        before = len(ledger)
+        ledger_parts = ledger.frame().height
+        rows_in = table.height
+        t0 = time.perf_counter()
+        try:
+            table = module.apply(table, spec.config, ctx)
+        except DataError as exc:
+            exc.outputs = dict(ctx.outputs)  # the runner writes failure cases beside the output folder
+            raise
+        seconds = time.perf_counter() - t0
+        added = len(ledger) - before
+        if rows_in - table.height != added:
+            raise AssertionError(
+                f"step `{spec.name}` removed {rows_in - table.height} rows but set aside {added}; this is a bug in prep."
+            )
+        new = ledger.frame().slice(ledger_parts)
+        counts = dict(sorted((r, n) for r, n in new.group_by("reason").len().iter_rows()))
+        step_facts.append(
+            StepFacts(name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=table.height, set_aside=counts, facts=dict(ctx.facts))
+        )
+        timings.append(StepTiming(spec.name, rows_in, table.height, seconds))
+        outputs.update(ctx.outputs)
+        report("step", step=spec.name, rows_in=rows_in, rows_out=table.height, seconds=seconds)
+    return table, step_facts, timings, outputs
+
+
+def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporter = _quiet) -> RunResult:
+    """Run ``pipeline`` end to end and write its outputs into ``out`` (default: the file's `output`)."""
+    from prep.card import build_card, render_markdown
+    from prep.split import assign_splits, split_tables
+
+    started = time.perf_counter()
+    started_at = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+    out = Path(out) if out is not None else pipeline.output
+    shown_out = str(out)
+    inputs = [s.path for s in pipeline.sources]
+    check_output_folder(out, inputs, shown=shown_out)
+
+    ledger = Ledger()
+    table, source_facts = read_sources(pipeline, ledger, report)
+    rows_read = sum(f.rows_read for f in source_facts)
+    try:
+        table, step_facts, timings, outputs = apply_steps(pipeline, table, ledger, report)
+    except DataError as exc:
+        extra = getattr(exc, "outputs", {})
+        written = []
+        for name, frame in extra.items():
+            target = out.parent / f"{out.name}.{name}.parquet"
+            out.parent.mkdir(parents=True, exist_ok=True)
+            frame.write_parquet(target)
+            written.append(str(target))
+        if written:
+            raise DataError(f"{exc.message} Failure cases: {', '.join(f'`{w}`' for w in written)}.") from exc
+        raise
+
+    t0 = time.perf_counter()
+    split = assign_splits(
+        table,
+        fractions=pipeline.split.fractions,
+        seed=pipeline.split.seed,
+        stratify=pipeline.split.stratify,
+        group=pipeline.split.group,
+    )
+    splits = split_tables(table, split)
+    splits = {name: splits.get(name, table.clear()).select([c for c in table.columns if not c.startswith("_")]) for name in SPLITS}
+    report("split", rows={name: f.height for name, f in splits.items()}, seconds=time.perf_counter() - t0)
+    ledger_frame = ledger.frame()
+    check_accounting(rows_read, splits.values(), ledger_frame)
+
+    with OutputFolder(out) as folder:
+        split_files: dict[str, SplitFileFacts] = {}
+        for name, frame in splits.items():
+            info = folder.write_parquet(f"{name}.parquet", frame)
+            split_files[name] = SplitFileFacts(
+                file=f"{name}.parquet", rows=frame.height, sha256=info["sha256"],
+                columns={c: str(t) for c, t in frame.schema.items()},
+            )
+        folder.write_parquet("set_aside.parquet", ledger_frame)
+        for name, frame in sorted(outputs.items()):
+            folder.write_parquet(f"{name}.parquet", frame)
+        facts = RunFacts(
+            dataset=pipeline.dataset,
+            description=pipeline.description,
+            about=to_plain(pipeline.about),
+            label=pipeline.label,
+            text=list(pipeline.text),
+            split_config=to_plain(pipeline.split),
+            seed=pipeline.split.seed,
+            tool_version=__version__,
+            pipeline_sha256=pipeline.sha256,
+            sources=source_facts,
+            steps=step_facts,
+            splits=splits,
+            split_files=split_files,
+            split_notes=list(split.notes),
+            ledger=ledger_frame,
+            rows_read=rows_read,
+        )
+        card = build_card(facts)
+        folder.write_text("card.json", dumps_json(card))
+        folder.write_text("card.md", render_markdown(card))
+        seconds = time.perf_counter() - started
+        manifest = {
+            "tool_version": __version__,
+            "dataset": pipeline.dataset,
+            "pipeline": {"file": pipeline.path.name, "sha256": pipeline.sha256},
+            "inputs": {f.name: {"path": f.path, "sha256": f.sha256, "bytes": f.bytes} for f in source_facts},
+            "seed": pipeline.split.seed,
+            "rows": {"read": rows_read, **{n: f.height for n, f in splits.items()}, "set_aside": ledger_frame.height},
+            # Run times live here only, so the splits, ledger and card stay byte-identical across runs.
+            "started_at": started_at,
+            "seconds": {"total": round(seconds, 3), **{t.name: round(t.seconds, 3) for t in timings}},
+        }
+        folder.commit(manifest)
+    report("written", output=shown_out)
+    return RunResult(
+        output=out,
+        rows_read=rows_read,
+        split_rows={n: f.height for n, f in splits.items()},
+        set_aside=ledger_frame.height,
+        timings=timings,
+        seconds=time.perf_counter() - started,
+        card=card,
+    )

@@ -1,0 +1,62 @@
+"""What every step gets from the runner, and the contract a step module fulfils.
+
+A step module (``prep/steps/<name>.py``) defines::
+
+    NAME = "<name>"                    # the key used in the pipeline file
+    @dataclass(frozen=True)
+    class Config: ...                  # typed config, built by prep.config.build
+    def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
+
+``apply`` is pure over the table: it never reads files, never prints, keeps row
+order, and never drops a row silently. Each removed row goes to the ledger via
+``ctx.set_aside(...)``. Facts for the card (counts, mappings, parameters it
+derived) go to ``ctx.report(key, value)``; values must be JSON-safe and must not
+contain personal data (counts and class names are fine, texts are not).
+Extra output tables (e.g. schema failure cases) go to ``ctx.add_output(name, frame)``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import polars as pl
+
+from prep.ledger import Ledger, Reason
+
+
+@dataclass
+class StepContext:
+    step: str                       # step name as in the pipeline file
+    label: str                      # canonical label column
+    text: tuple[str, ...]           # canonical text columns, in reading order
+    ledger: Ledger
+    split_fractions: dict[str, float]  # {"train": .8, "validation": .1, "test": .1}
+    pipeline_dir: Path              # folder of the pipeline file (to resolve paths in configs)
+    seed: int = 0
+    group: str | None = None        # the split's group column, if any
+    facts: dict[str, Any] = field(default_factory=dict)
+    outputs: dict[str, pl.DataFrame] = field(default_factory=dict)
+
+    def set_aside(
+        self,
+        rows: pl.DataFrame,
+        reason: Reason | str,
+        *,
+        detail: str | pl.Series | None = None,
+        kept_row_id: str | pl.Series | None = None,
+        similarity: float | pl.Series | None = None,
+    ) -> None:
+        """Record ``rows`` (holding row_id, source, source_row) in the ledger under this step."""
+        self.ledger.add(
+            rows, step=self.step, reason=reason, detail=detail, kept_row_id=kept_row_id, similarity=similarity
+        )
+
+    def report(self, key: str, value: Any) -> None:
+        """A JSON-safe fact for the card's section on this step."""
+        self.facts[key] = value
+
+    def add_output(self, name: str, frame: pl.DataFrame) -> None:
+        """An extra table written next to the outputs as ``<name>.parquet``."""
+        self.outputs[name] = frame
