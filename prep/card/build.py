@@ -1,0 +1,391 @@
+"""RunFacts -> the card dict written as ``card.json``.
+
+One function per section (``_section_<key>``), so later versions add or extend a section
+without touching the others. :func:`build_card` calls them in :data:`SECTION_ORDER`.
+
+Invariants:
+
+- The card is plain JSON (dict, list, str, int, float, bool, None) with no NaN or infinity;
+  ``json.dumps(card, sort_keys=True)`` is byte-identical for the same RunFacts.
+- It holds no text value from the rows: only counts, class names, column names, step and
+  reason names, file names, hashes and what the pipeline file or the steps stated.
+- Nothing in it depends on time, the machine or an absolute path.
+- Floats are rounded to :data:`FLOAT_DIGITS` decimals so summation noise never reaches the bytes.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import PurePosixPath, PureWindowsPath
+from typing import Any
+
+import polars as pl
+
+from prep.card import stats
+from prep.errors import PrepError
+from prep.facts import RunFacts
+from prep.ledger import Reason
+from prep.split import min_rows_for_all_splits
+
+CARD_VERSION = "1.0"
+TASK_KIND = "single-label classification"
+SPLITS = ("train", "validation", "test")
+ABOUT_FIELDS = ("purpose", "intended_use", "license", "maintainer", "contact")
+
+#: Decimals kept for every float in the card (enough for weights and evenness; hides fsum noise).
+FLOAT_DIGITS = 6
+
+#: The step of the ledger that records unreadable input records (written by the readers).
+READ_STEP = "read"
+
+#: Steps that later versions describe in their own section; until then the section says "not run".
+LATER_SECTIONS = {"near_duplicates": "near_duplicates", "redaction": "redact", "languages": "language"}
+
+PERSONAL_DATA_NOTICE = (
+    "Redaction of personal data is best-effort: pattern-based detection misses some personal "
+    "data and may mask harmless text. It is no replacement for your own data-protection review "
+    "before the data is used, shared or published."
+)
+
+LEAKAGE_METHOD = (
+    "Exact-text leakage: the text columns of each row are whitespace-collapsed (Unicode White_Space "
+    "runs to one space, ends trimmed), joined and case-folded (Unicode full case folding); a row leaks "
+    "when its key occurs in another split. Rows with empty text are not compared. Expected to be 0 "
+    "after exact-duplicate removal; reported, never enforced."
+)
+
+SECTION_ORDER = (
+    "card_version",
+    "dataset",
+    "description",
+    "about",
+    "task",
+    "sources",
+    "steps",
+    "set_aside",
+    "classes",
+    "imbalance",
+    "class_weights",
+    "recommended_averaging",
+    "label_merges",
+    "leakage",
+    "splits",
+    "provenance",
+    "accounting",
+    "personal_data_notice",
+    "near_duplicates",
+    "redaction",
+    "languages",
+    "cautions",
+)
+
+
+def build_card(facts: RunFacts) -> dict[str, Any]:
+    """The card for one run, as a plain JSON-safe dict with keys in :data:`SECTION_ORDER`."""
+    derived = _Derived(facts)
+    card: dict[str, Any] = {}
+    for key in SECTION_ORDER:
+        section = globals()[f"_section_{key}"]
+        card[key] = _plain(section(facts, derived), where=f"card section `{key}`")
+    return card
+
+
+class _Derived:
+    """Values several sections share, computed once: classes and their counts per split."""
+
+    def __init__(self, facts: RunFacts) -> None:
+        frames = {name: facts.splits.get(name, pl.DataFrame()) for name in SPLITS}
+        names: set[str] = set()
+        for frame in frames.values():
+            if facts.label in frame.columns and frame.height:
+                names.update(frame.get_column(facts.label).drop_nulls().unique().to_list())
+        self.frames = frames
+        self.classes: list[str] = sorted(names)
+        self.counts: dict[str, dict[str, int]] = {
+            name: stats.class_counts(frame, facts.label, self.classes) for name, frame in frames.items()
+        }
+        self.total: dict[str, int] = {c: sum(self.counts[s][c] for s in SPLITS) for c in self.classes}
+
+
+# --- sections --------------------------------------------------------------------------------
+
+
+def _section_card_version(facts: RunFacts, d: _Derived) -> str:
+    return CARD_VERSION
+
+
+def _section_dataset(facts: RunFacts, d: _Derived) -> str:
+    return facts.dataset
+
+
+def _section_description(facts: RunFacts, d: _Derived) -> str | None:
+    return facts.description
+
+
+def _section_about(facts: RunFacts, d: _Derived) -> dict[str, str | None]:
+    about = facts.about or {}
+    return {key: about.get(key) for key in ABOUT_FIELDS}
+
+
+def _section_task(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return {"kind": TASK_KIND, "label_column": facts.label, "text_columns": list(facts.text)}
+
+
+def _section_sources(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    items = [
+        {
+            "name": s.name,
+            "path": _relative_path(s.path),
+            "format": s.format,
+            "compression": s.compression,
+            "encoding": s.encoding,
+            "rows_read": s.rows_read,
+            "rows_unreadable": s.rows_unreadable,
+            "bytes": s.bytes,
+            "sha256": s.sha256,
+        }
+        for s in facts.sources
+    ]
+    totals = {
+        "sources": len(items),
+        "rows_read": sum(s.rows_read for s in facts.sources),
+        "rows_unreadable": sum(s.rows_unreadable for s in facts.sources),
+        "bytes": sum(s.bytes for s in facts.sources),
+    }
+    return {"items": items, "totals": totals}
+
+
+def _section_steps(facts: RunFacts, d: _Derived) -> list[dict[str, Any]]:
+    out = []
+    for index, step in enumerate(facts.steps):
+        where = f"step {index} (`{step.name}`)"
+        out.append(
+            {
+                "name": step.name,
+                "params": _plain(step.params, where=f"the parameters of {where}"),
+                "rows_in": step.rows_in,
+                "rows_out": step.rows_out,
+                "set_aside": dict(sorted(step.set_aside.items())),
+                "facts": _plain(step.facts, where=f"the facts reported by {where}"),
+            }
+        )
+    return out
+
+
+def _section_set_aside(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    """Ledger totals by step (in run order: read, then the pipeline's steps, then others by name)."""
+    ledger = facts.ledger
+    grouped = (
+        ledger.group_by("step", "reason").len().sort("step", "reason")
+        if ledger.height
+        else pl.DataFrame(schema={"step": pl.String, "reason": pl.String, "len": pl.UInt32})
+    )
+    run_order = [READ_STEP] + [s.name for s in facts.steps]
+    seen = list(dict.fromkeys(grouped.get_column("step").to_list()))
+    ordered = [s for s in dict.fromkeys(run_order) if s in seen] + sorted(s for s in seen if s not in run_order)
+    by_step = []
+    for step in ordered:
+        rows = grouped.filter(pl.col("step") == step)
+        reasons = {r: int(n) for r, n in zip(rows.get_column("reason"), rows.get_column("len"))}
+        by_step.append({"step": step, "rows": sum(reasons.values()), "by_reason": dict(sorted(reasons.items()))})
+    by_reason: dict[str, int] = {}
+    for entry in by_step:
+        for reason, n in entry["by_reason"].items():
+            by_reason[reason] = by_reason.get(reason, 0) + n
+    return {"total": ledger.height, "by_reason": dict(sorted(by_reason.items())), "by_step": by_step}
+
+
+def _section_classes(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    counts = [
+        {"class": c, **{s: d.counts[s][c] for s in SPLITS}, "total": d.total[c]} for c in d.classes
+    ]
+    absent = {c: [s for s in SPLITS if d.counts[s][c] == 0] for c in d.classes}
+    return {
+        "names": list(d.classes),
+        "counts": counts,
+        "absent_from": {c: splits for c, splits in absent.items() if splits},
+        "rows_without_label": {s: stats.missing_labels(d.frames[s], facts.label) for s in SPLITS},
+    }
+
+
+def _balance(counts: dict[str, int]) -> dict[str, Any]:
+    largest, smallest = stats.largest_and_smallest(counts)
+    return {
+        "rows": sum(counts.values()),
+        "classes_present": sum(1 for n in counts.values() if n > 0),
+        "largest_class": largest,
+        "smallest_class": smallest,
+        "imbalance_ratio": _round(stats.imbalance_ratio(counts)),
+        "shannon_entropy": _round(stats.shannon_entropy(counts)),
+        "pielou_evenness": _round(stats.pielou_evenness(counts)),
+    }
+
+
+def _section_imbalance(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return {
+        "definitions": {
+            "imbalance_ratio": "largest class count / smallest class count over all classes; null if a class has 0 rows",
+            "shannon_entropy": "H = -sum p ln p in nats over the classes present (Shannon 1948)",
+            "pielou_evenness": "H / ln K, K = classes present (Pielou 1966); null when K < 2",
+        },
+        "by_split": {s: _balance(d.counts[s]) for s in SPLITS},
+        "overall": _balance(d.total),
+    }
+
+
+def _section_class_weights(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    weights = stats.class_weights(d.counts["train"])
+    return {
+        "basis": "train",
+        "formula": "n / (K * n_c), K = classes present in train; null for a class absent from train",
+        "weights": {c: _round(w) for c, w in weights.items()},
+    }
+
+
+def _section_recommended_averaging(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    average, reason = stats.recommend_averaging(stats.imbalance_ratio(d.counts["train"]))
+    return {
+        "average": average,
+        "reason": reason,
+        "threshold": stats.MACRO_AVERAGING_THRESHOLD,
+        "threshold_source": "rule of thumb, common practice, no source",
+    }
+
+
+def _section_label_merges(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    step = next((s for s in facts.steps if s.name == "normalise"), None)
+    if step is None:
+        return {"status": "not run"}
+    if "label_merges" not in step.facts:
+        return {"status": "not reported"}
+    return {"status": "reported", "merges": step.facts["label_merges"]}
+
+
+def _section_leakage(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    result = stats.exact_text_leakage(d.frames, facts.text)
+    return {"method": LEAKAGE_METHOD, "text_columns": list(facts.text), "clean": result["total"] == 0, **result}
+
+
+def _section_splits(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    files = {}
+    for name in SPLITS:
+        f = facts.split_files.get(name)
+        if f is None:
+            continue
+        files[name] = {
+            "file": _relative_path(f.file),
+            "rows": f.rows,
+            "sha256": f.sha256,
+            "columns": [{"name": c, "type": t} for c, t in f.columns.items()],
+        }
+    return {
+        "files": files,
+        "config": _plain(facts.split_config, where="the split configuration"),
+        "notes": list(facts.split_notes),
+    }
+
+
+def _section_provenance(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return {
+        "pipeline_sha256": facts.pipeline_sha256,
+        "tool": "prep",
+        "tool_version": facts.tool_version,
+        "seed": facts.seed,
+    }
+
+
+def _section_accounting(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    rows = {s: (facts.splits[s].height if s in facts.splits else 0) for s in SPLITS}
+    in_splits = sum(rows.values())
+    return {
+        "rows_read": facts.rows_read,
+        "rows_per_split": rows,
+        "rows_in_splits": in_splits,
+        "rows_set_aside": facts.ledger.height,
+        "balanced": facts.rows_read == in_splits + facts.ledger.height,
+    }
+
+
+def _section_personal_data_notice(facts: RunFacts, d: _Derived) -> str:
+    return PERSONAL_DATA_NOTICE
+
+
+def _later(facts: RunFacts, step_name: str) -> dict[str, Any]:
+    """Placeholder for a section a later card version fills; says whether the step ran at all."""
+    if not any(s.name == step_name for s in facts.steps):
+        return {"status": "not run"}
+    return {"status": "see steps", "step": step_name}
+
+
+def _section_near_duplicates(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return _later(facts, LATER_SECTIONS["near_duplicates"])
+
+
+def _section_redaction(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return _later(facts, LATER_SECTIONS["redaction"])
+
+
+def _section_languages(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return _later(facts, LATER_SECTIONS["languages"])
+
+
+def _section_cautions(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    """What a user of the splits should know before training: rare classes, conflicts, personal data."""
+    fractions = [float(facts.split_config.get(s, 0) or 0) for s in SPLITS]
+    minimum = min_rows_for_all_splits(fractions) if sum(fractions) > 0 else None
+    rare = [
+        c
+        for c in d.classes
+        if any(d.counts[s][c] == 0 for s, f in zip(SPLITS, fractions) if f > 0)
+        or (minimum is not None and d.total[c] < minimum)
+    ]
+    conflicts = int(facts.ledger.filter(pl.col("reason") == Reason.LABEL_CONFLICT.value).height)
+    redacted = any(s.name == LATER_SECTIONS["redaction"] for s in facts.steps)
+    return {
+        "rare_classes": {
+            "rule": "a class is rare when it is missing from a split that should have rows, or has fewer "
+            "rows in total than the smallest class size that gives every such split at least one row",
+            "min_rows_for_all_splits": minimum,
+            "classes": rare,
+        },
+        "label_conflict_rows": conflicts,
+        "redaction_ran": redacted,
+        "residual_personal_data": (
+            "Redaction ran; residual personal data is still possible (see the personal data notice)."
+            if redacted
+            else "No redaction step ran: the texts may contain personal data."
+        ),
+    }
+
+
+# --- helpers ---------------------------------------------------------------------------------
+
+
+def _round(value: float | None) -> float | None:
+    return None if value is None else round(value, FLOAT_DIGITS)
+
+
+def _relative_path(path: str) -> str:
+    """The path as written when relative; only the file name when absolute (never a machine path)."""
+    for flavour in (PurePosixPath, PureWindowsPath):
+        p = flavour(path)
+        if p.is_absolute() or p.drive:
+            return p.name
+    return str(path)
+
+
+def _plain(value: Any, *, where: str) -> Any:
+    """``value`` as plain JSON (tuples become lists, keys strings); a full-sentence error otherwise."""
+    try:
+        return json.loads(json.dumps(value, allow_nan=False, sort_keys=True))
+    except (TypeError, ValueError) as exc:
+        raise PrepError(
+            f"The data card cannot be written: {where} holds a value that is not plain JSON "
+            f"({type(exc).__name__}). This is a bug in prep; please report it with the pipeline file."
+        ) from exc
+
+
+__all__ = ["CARD_VERSION", "SECTION_ORDER", "build_card"]
+
+# Every section in SECTION_ORDER has a builder; fail at import rather than at the first run.
+assert all(f"_section_{key}" in globals() for key in SECTION_ORDER), "a card section has no builder"
