@@ -123,48 +123,79 @@ def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) 
     return table, facts
 
 
+def step_phase(name: str) -> str:
+    """``"table"`` for steps that run before the split, ``"splits"`` for those that need it."""
+    return getattr(step_module(name), "PHASE", "table")
+
+
+def _context(pipeline: Pipeline, spec, ledger: Ledger) -> StepContext:
+    return StepContext(
+        step=spec.name,
+        label=pipeline.label,
+        text=pipeline.text,
+        ledger=ledger,
+        split_fractions=pipeline.split.fractions,
+        pipeline_dir=pipeline.folder,
+        seed=pipeline.split.seed,
+        group=pipeline.split.group,
+    )
+
+
+def _height(data: pl.DataFrame | dict[str, pl.DataFrame]) -> int:
+    return data.height if isinstance(data, pl.DataFrame) else sum(f.height for f in data.values())
+
+
 def apply_steps(
-    pipeline: Pipeline, table: pl.DataFrame, ledger: Ledger, report: Reporter = _quiet
-) -> tuple[pl.DataFrame, list[StepFacts], list[StepTiming], dict[str, pl.DataFrame]]:
+    pipeline: Pipeline,
+    data: pl.DataFrame | dict[str, pl.DataFrame],
+    ledger: Ledger,
+    report: Reporter = _quiet,
+    *,
+    phase: str = "table",
+) -> tuple[Any, list[StepFacts], list[StepTiming], dict[str, pl.DataFrame]]:
+    """Apply the pipeline's steps of one phase in file order.
+
+    Phase ``"table"``: ``module.apply(table, config, ctx) -> table`` before the split.
+    Phase ``"splits"``: ``module.apply_splits({"train": …, "validation": …, "test": …}, config, ctx)
+    -> splits`` after it, for steps that need the split (their module sets ``PHASE = "splits"``).
+    After every step, rows in - rows out must equal the rows it set aside.
+    """
     step_facts: list[StepFacts] = []
     timings: list[StepTiming] = []
     outputs: dict[str, pl.DataFrame] = {}
     for spec in pipeline.steps:
+        if step_phase(spec.name) != phase:
+            continue
         module = step_module(spec.name)
-        ctx = StepContext(
-            step=spec.name,
-            label=pipeline.label,
-            text=pipeline.text,
-            ledger=ledger,
-            split_fractions=pipeline.split.fractions,
-            pipeline_dir=pipeline.folder,
-            seed=pipeline.split.seed,
-            group=pipeline.split.group,
-        )
+        ctx = _context(pipeline, spec, ledger)
         before = len(ledger)
         ledger_parts = ledger.frame().height
-        rows_in = table.height
+        rows_in = _height(data)
         t0 = time.perf_counter()
         try:
-            table = module.apply(table, spec.config, ctx)
+            if phase == "table":
+                data = module.apply(data, spec.config, ctx)
+            else:
+                data = module.apply_splits(data, spec.config, ctx)
         except DataError as exc:
             exc.outputs = dict(ctx.outputs)  # the runner writes failure cases beside the output folder
             raise
         seconds = time.perf_counter() - t0
         added = len(ledger) - before
-        if rows_in - table.height != added:
+        rows_out = _height(data)
+        if rows_in - rows_out != added:
             raise AssertionError(
-                f"step `{spec.name}` removed {rows_in - table.height} rows but set aside {added}; this is a bug in prep."
+                f"step `{spec.name}` removed {rows_in - rows_out} rows but set aside {added}; this is a bug in prep."
             )
         new = ledger.frame().slice(ledger_parts)
         counts = dict(sorted((r, n) for r, n in new.group_by("reason").len().iter_rows()))
         step_facts.append(
-            StepFacts(name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=table.height, set_aside=counts, facts=dict(ctx.facts))
+            StepFacts(name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=rows_out, set_aside=counts, facts=dict(ctx.facts))
         )
-        timings.append(StepTiming(spec.name, rows_in, table.height, seconds))
+        timings.append(StepTiming(spec.name, rows_in, rows_out, seconds))
         outputs.update(ctx.outputs)
-        report("step", step=spec.name, rows_in=rows_in, rows_out=table.height, seconds=seconds)
-    return table, step_facts, timings, outputs
+        report("step", step=spec.name, rows_in=rows_in, rows_out=rows_out, seconds=seconds)
+    return data, step_facts, timings, outputs
 
 
 def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporter = _quiet) -> RunResult:
@@ -207,6 +238,10 @@ def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporte
     splits = split_tables(table, split)
     splits = {name: splits.get(name, table.clear()).select([c for c in table.columns if not c.startswith("_")]) for name in SPLITS}
     report("split", rows={name: f.height for name, f in splits.items()}, seconds=time.perf_counter() - t0)
+    splits, after_facts, after_timings, after_outputs = apply_steps(pipeline, splits, ledger, report, phase="splits")
+    step_facts += after_facts
+    timings += after_timings
+    outputs.update(after_outputs)
     ledger_frame = ledger.frame()
     check_accounting(rows_read, splits.values(), ledger_frame)
 
@@ -252,7 +287,10 @@ def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporte
             "rows": {"read": rows_read, **{n: f.height for n, f in splits.items()}, "set_aside": ledger_frame.height},
             # Run times live here only, so the splits, ledger and card stay byte-identical across runs.
             "started_at": started_at,
-            "seconds": {"total": round(seconds, 3), **{t.name: round(t.seconds, 3) for t in timings}},
+            "seconds": round(seconds, 3),
+            "steps": [
+                {"step": t.name, "rows_in": t.rows_in, "rows_out": t.rows_out, "seconds": round(t.seconds, 3)} for t in timings
+            ],
         }
         folder.commit(manifest)
     report("written", output=shown_out)

@@ -11,6 +11,11 @@ STEP_MODULES: dict[str, str] = {
     "exact_duplicates": "prep.steps.exact_duplicates",
     "schema": "prep.steps.schema",
     "rare_classes": "prep.steps.rare_classes",
+    "near_duplicates": "prep.steps.near_duplicates",
+    "redact": "prep.steps.redact",
+    "language": "prep.steps.language",
+    "baseline": "prep.steps.baseline",            # runs after the split (PHASE = "splits")
+    "suspect_labels": "prep.steps.suspect_labels",  # runs after the split (PHASE = "splits")
 }
 
 
