@@ -20,7 +20,8 @@ from prep.errors import PrepError
 def _fail(exc: BaseException, debug: bool, code: int) -> None:
     if debug:
         traceback.print_exception(exc, file=sys.stderr)
-    message = str(exc) if isinstance(exc, PrepError) else f"unexpected {type(exc).__name__}: {exc}"
+    # An unexpected error's own text may quote data values or absolute paths: only --debug shows it.
+    message = str(exc) if isinstance(exc, PrepError) else f"unexpected {type(exc).__name__} (details with --debug)."
     click.echo(f"Error: {message}", err=True)
     if not debug and not isinstance(exc, PrepError):
         click.echo("This is probably a bug in prep; run again with --debug to see the traceback.", err=True)
@@ -80,8 +81,14 @@ def cli() -> None:
 @click.argument("pipeline", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), help="Output folder (overrides `output` in the pipeline file).")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the final accounting line.")
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Replace the output folder even if it is not empty and prep did not write it (everything in it is deleted). "
+    "A folder holding an input file, the pipeline file or the current folder is refused even then.",
+)
 @debug_option
-def run(pipeline: Path, out: Path | None, quiet: bool, debug: bool) -> None:
+def run(pipeline: Path, out: Path | None, quiet: bool, force: bool, debug: bool) -> None:
     """Run PIPELINE end to end and write the outputs.
 
     Ends with the accounting line: rows read = train + validation + test + set aside.
@@ -93,7 +100,7 @@ def run(pipeline: Path, out: Path | None, quiet: bool, debug: bool) -> None:
     loaded = _guard(debug, load_pipeline, pipeline)
     if not quiet:
         click.echo(f"prep {__version__}: {loaded.dataset} ({pipeline})", err=True)
-    result = _guard(debug, run_pipeline, loaded, out=out, report=_Printer(quiet))
+    result = _guard(debug, run_pipeline, loaded, out=out, report=_Printer(quiet), force=force)
     if not quiet:
         click.echo(f"  done in {result.seconds:.1f} s", err=True)
     click.echo(result.accounting_line())
@@ -115,6 +122,60 @@ def check(pipeline: Path, debug: bool) -> None:
     for line in lines:
         click.echo(line)
     click.echo(f"{pipeline}: ok ({len(loaded.sources)} sources, {len(loaded.steps)} steps)")
+
+
+@cli.command()
+@click.argument("output_dir", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--limit", default=10, show_default=True, type=click.IntRange(min=1), help="Clusters to show.")
+@click.option("--kind", type=click.Choice(["exact", "near"]), help="Only exact or only near-duplicate clusters.")
+@debug_option
+def clusters(output_dir: Path, limit: int, kind: str | None, debug: bool) -> None:
+    """Show the duplicate clusters of OUTPUT_DIR (written by `prep run`), largest first.
+
+    Members are listed side by side with their split, similarity to the kept row, label and
+    text as written in the splits (redacted where the pipeline redacted).
+    """
+    from prep.inspect import cluster_lines
+
+    for line in _guard(debug, cluster_lines, output_dir, limit=limit, kind=kind):
+        click.echo(line)
+
+
+@cli.command()
+@click.argument("output_dir", type=click.Path(file_okay=False, path_type=Path))
+@debug_option
+def card(output_dir: Path, debug: bool) -> None:
+    """Render card.md, card.html and croissant.json of OUTPUT_DIR again from its card.json.
+
+    Edit a hand-written field in card.json (purpose, license, maintainer, …), then run this;
+    the pipeline does not run again. Refuses a folder that is not a finished prep output.
+    """
+    from prep.card_command import render_again
+
+    written = _guard(debug, render_again, output_dir)
+    click.echo(f"{output_dir}: rendered {', '.join(written)} from card.json")
+
+
+@cli.command()
+@click.argument("old_output", type=click.Path(file_okay=False, path_type=Path))
+@click.argument("new_output", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), default=Path("."), show_default=True,
+              help="Folder for compare.json and compare.html.")
+@debug_option
+def compare(old_output: Path, new_output: Path, out: Path, debug: bool) -> None:
+    """Compare two versions of a prepared data set (two `prep run` output folders).
+
+    Prints a short summary and writes compare.json and compare.html: class and language shift
+    (Jensen-Shannon distance), text length shift, rows whose split changed, and new validation
+    or test rows that near-duplicate an old train row.
+    """
+    from prep.compare import compare as compare_versions, summary_lines, write
+
+    result = _guard(debug, compare_versions, old_output, new_output)
+    for line in summary_lines(result):
+        click.echo(line)
+    written = _guard(debug, write, result, out)
+    click.echo(f"wrote {', '.join(str(p) for p in written)}", err=True)
 
 
 def main() -> None:

@@ -15,7 +15,13 @@ Messages are full sentences for people: what went wrong, where (file, line,
 column, key), and what to do. They never contain values from the data, since
 those may be personal data. Errors from polars, pyarrow, YAML and the OS are
 translated at the reading and writing boundaries, keeping the original as
-``__cause__`` (``prep --debug`` prints it).
+``__cause__`` (``prep --debug`` prints it): readers (``prep.read``), the pipeline
+loader (``prep.pipeline``) and the output folder (``prep.write``). An exception of
+any other type that reaches the CLI is a bug in prep: the CLI prints only its type
+name, since its text may quote data values or absolute paths.
+
+``OutputError`` examples: the output folder holds an input file, or files prep did
+not write (``--force`` overrides only that), or a write fails (disk full).
 """
 
 from __future__ import annotations

@@ -8,7 +8,9 @@ Paths in the file are relative to the file's folder.
 from __future__ import annotations
 
 import dataclasses
+import errno
 import hashlib
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -79,6 +81,9 @@ class SplitSpec:
     seed: int
     stratify: str | None = None
     group: str | None = None
+    # Stable splits: the previous version's output folder (relative to the pipeline file). Rows
+    # found in its splits keep their split; only new rows are allocated (prep.split, history).
+    history: str | None = None
 
     def check(self) -> None:
         for key in ("train", "validation", "test"):
@@ -221,6 +226,37 @@ def _load_yaml(path: Path) -> Any:
     return data, hashlib.sha256(raw).hexdigest()
 
 
+def path_problem(path: Path) -> str | None:
+    """Why ``path`` cannot be reached although it may exist (a symbolic-link loop, a dangling link, no
+    permission), as words for a message; None when it exists or is simply missing."""
+    try:
+        os.stat(path)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            return "is (or passes through) a symbolic-link loop"
+        if path.is_symlink():
+            return "is a symbolic link to something that does not exist"
+        if exc.errno in (errno.ENOENT, errno.ENOTDIR):
+            return None
+        return f"cannot be reached ({exc.strerror})"
+    return None
+
+
+def _check_history(resolved: Path, written: str, fail, container: Any) -> None:
+    """`split.history` must name an existing folder holding the three split files of an earlier run."""
+    if not resolved.is_dir():
+        raise fail(
+            f"the split history `{written}` is not a folder (give the output folder of the previous version, "
+            "relative to the pipeline file).", "split.history", container, "history",
+        )
+    missing = [f"{name}.parquet" for name in ("train", "validation", "test") if not (resolved / f"{name}.parquet").is_file()]
+    if missing:
+        raise fail(
+            f"the split history `{written}` has no {', '.join(missing)}; it must be the output folder of an earlier run.",
+            "split.history", container, "history",
+        )
+
+
 def load_pipeline(path: str | Path) -> Pipeline:
     """Load, validate and resolve a pipeline file. Raises :class:`PipelineError` (exit 2)."""
     path = Path(path)
@@ -255,6 +291,9 @@ def load_pipeline(path: str | Path) -> Pipeline:
             raise fail(f"duplicate source name `{s.name}` (also used by sources[{seen[s.name]}]).", f"{key}.name", raw, "name")
         seen[s.name] = i
         resolved = folder / s.path
+        unreachable = path_problem(resolved)
+        if unreachable:
+            raise fail(f"input file `{s.path}` {unreachable}.", f"{key}.path", raw, "path")
         if not resolved.exists():
             raise fail(f"input file `{s.path}` not found (paths are relative to the pipeline file).", f"{key}.path", raw, "path")
         if resolved.is_dir():
@@ -303,6 +342,8 @@ def load_pipeline(path: str | Path) -> Pipeline:
         if value is not None and value not in canonical:
             raise fail(f"`{value}` is not a canonical column (known: {', '.join(canonical)}).", f"split.{key_name}", data["split"], key_name if key_name in data["split"] else None)
     split = dataclasses.replace(split, stratify=stratify)
+    if split.history is not None:
+        _check_history(folder / split.history, split.history, fail, data["split"])
 
     # Steps: a list of single-key mappings, each built with its module's Config.
     steps: list[StepSpec] = []

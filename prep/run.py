@@ -23,7 +23,7 @@ from prep.ledger import Ledger, Reason, check_accounting
 from prep.pipeline import PROVENANCE_COLUMNS, Pipeline, Source
 from prep.steps import step_module
 from prep.steps.base import StepContext
-from prep.write import OutputFolder, check_output_folder, dumps_json, sha256_file
+from prep.write import OutputFolder, dumps_json, prepare_output, sha256_file
 
 SPLITS = ("train", "validation", "test")
 
@@ -61,16 +61,18 @@ class RunResult:
 
 def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger) -> tuple[pl.DataFrame, SourceFacts]:
     from prep.read import read_source
+    from prep.read.names import column_hint, describe_columns, shown_name
 
     result = read_source(source, on_unreadable=pipeline.on_unreadable)
     present = set(result.table.columns)
     for canon, column in source.columns.items():
         if column not in present:
-            have = ", ".join(f"`{c}`" for c in result.table.columns if c != "source_row")
+            names = [c for c in result.table.columns if c != "source_row"]
             raise PipelineError(
-                f"column `{column}` is not in `{source.path_text}` (its columns: {have}).",
+                f"column {shown_name(column)} is not in `{source.path_text}` (its columns: {describe_columns(names)}).",
                 file=str(pipeline.path),
                 key=f"sources[{index}].columns.{canon}",
+                hint=column_hint(names, column, file_format=source.format),
             )
     frame = result.table.select(
         pl.concat_str([pl.lit(source.name + ":"), pl.col("source_row").cast(pl.String)]).alias("row_id"),
@@ -198,21 +200,30 @@ def apply_steps(
     return data, step_facts, timings, outputs
 
 
-def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporter = _quiet) -> RunResult:
-    """Run ``pipeline`` end to end and write its outputs into ``out`` (default: the file's `output`)."""
-    from prep.card import build_card, render_markdown
+def run_pipeline(
+    pipeline: Pipeline, *, out: Path | None = None, report: Reporter = _quiet, force: bool = False
+) -> RunResult:
+    """Run ``pipeline`` end to end and write its outputs into ``out`` (default: the file's `output`).
+
+    ``force`` lets prep replace a non-empty output folder that it did not write (see
+    :func:`prep.write.check_output_folder` for what is refused even then).
+    """
+    from prep.card import build_card, render_markdown, write_card_files
     from prep.split import assign_splits, split_tables
 
     started = time.perf_counter()
     started_at = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
     out = Path(out) if out is not None else pipeline.output
     shown_out = str(out)
-    inputs = [s.path for s in pipeline.sources]
-    check_output_folder(out, inputs, shown=shown_out)
+    inputs = [s.path for s in pipeline.sources] + [pipeline.path]
+    prepare_output(out, inputs, shown=shown_out, force=force)
 
     ledger = Ledger()
     table, source_facts = read_sources(pipeline, ledger, report)
     rows_read = sum(f.rows_read for f in source_facts)
+    from prep.card.inputs import input_facts
+
+    card_inputs = input_facts(pipeline, table)  # missing values by source and column, as read
     try:
         table, step_facts, timings, outputs = apply_steps(pipeline, table, ledger, report)
     except DataError as exc:
@@ -234,6 +245,8 @@ def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporte
         seed=pipeline.split.seed,
         stratify=pipeline.split.stratify,
         group=pipeline.split.group,
+        links=("_cluster",),  # near-duplicate clusters (action: mark or set_aside) stay in one split
+        history=pipeline.folder / pipeline.split.history if pipeline.split.history else None,  # stable splits
     )
     splits = split_tables(table, split)
     splits = {name: splits.get(name, table.clear()).select([c for c in table.columns if not c.startswith("_")]) for name in SPLITS}
@@ -242,7 +255,11 @@ def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporte
     step_facts += after_facts
     timings += after_timings
     outputs.update(after_outputs)
-    ledger_frame = ledger.frame()
+    from prep.neardup.report import audit as near_duplicate_audit, combine_duplicates, resolve_kept_chains
+
+    combine_duplicates(outputs)  # exact + near clusters -> duplicates.parquet
+    leakage_audit = near_duplicate_audit(pipeline, splits)
+    ledger_frame = resolve_kept_chains(ledger.frame())  # kept_row_id always names a row still kept
     check_accounting(rows_read, splits.values(), ledger_frame)
 
     with OutputFolder(out) as folder:
@@ -274,9 +291,11 @@ def run_pipeline(pipeline: Pipeline, *, out: Path | None = None, report: Reporte
             ledger=ledger_frame,
             rows_read=rows_read,
         )
+        facts.extra["near_duplicate_audit"] = leakage_audit
+        facts.extra.update(card_inputs)
         card = build_card(facts)
         folder.write_text("card.json", dumps_json(card))
-        folder.write_text("card.md", render_markdown(card))
+        write_card_files(folder, card, started_at)  # card.md, card.html, croissant.json
         seconds = time.perf_counter() - started
         manifest = {
             "tool_version": __version__,

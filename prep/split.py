@@ -29,11 +29,12 @@ from __future__ import annotations
 import hashlib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 import polars as pl
 
-from prep.errors import DataError, PipelineError
+from prep.errors import DataError, InputError, PipelineError
 
 SPLITS: tuple[str, str, str] = ("train", "validation", "test")
 
@@ -73,6 +74,54 @@ def allocate(n: int, fractions: Sequence[float]) -> list[int]:
     for i in order[:left]:
         counts[i] += 1
     return counts
+
+
+# Two fractional remainders closer than this count as tied (YAML decimals such as 0.1 are not exact
+# in binary, so 12 * 0.2 and 12 * 0.2 computed by different routes may differ in the last bit).
+REMAINDER_TIE_TOLERANCE = 1e-9
+
+
+def allocate_strata(sizes: Sequence[int], fractions: Sequence[float]) -> list[list[int]]:
+    """Largest-remainder allocation of several strata at once, processed in the order given.
+
+    Each stratum of ``n`` rows gets what :func:`allocate` would give it up to ties: every part
+    first gets ``floor(n * f)``, and the rows left over go one each to the parts with the largest
+    fractional remainders. Where remainders tie, the row goes to the part furthest below its
+    overall target so far (its *running deficit*: ``f * rows seen so far`` minus the rows it has
+    been given, this stratum's floors included), then by position. So with many equal-sized
+    classes the extra rows alternate between the tied splits instead of always going to the
+    first of them (three classes of 12 at 0.6/0.2/0.2 give validation 8 and test 7 rows, not 9 and 6).
+
+    A part whose fraction is 0 never gets a row. The caller chooses the order; prep's splitter
+    uses one that does not depend on class names (see :func:`_assign_units`).
+
+    >>> allocate_strata([12, 12, 12], [0.6, 0.2, 0.2])
+    [[7, 3, 2], [7, 2, 3], [7, 3, 2]]
+    >>> allocate_strata([10], [0.8, 0.1, 0.1]) == [allocate(10, [0.8, 0.1, 0.1])]
+    True
+    """
+    total = sum(fractions)
+    share = [f / total for f in fractions]
+    given = [0] * len(fractions)
+    seen = 0
+    result = []
+    for n in sizes:
+        if n < 0:
+            raise ValueError("sizes must be >= 0")
+        exact = [n * s for s in share]
+        counts = [int(e) for e in exact]
+        left = n - sum(counts)
+        seen += n
+        deficit = [seen * share[i] - (given[i] + counts[i]) for i in range(len(share))]
+        order = sorted(
+            (i for i in range(len(share)) if share[i] > 0),
+            key=lambda i: (-round((exact[i] - counts[i]) / REMAINDER_TIE_TOLERANCE), -deficit[i], i),
+        )
+        for i in order[:left]:
+            counts[i] += 1
+        given = [g + c for g, c in zip(given, counts)]
+        result.append(counts)
+    return result
 
 
 def min_rows_for_all_splits(fractions: Sequence[float]) -> int:
@@ -134,6 +183,8 @@ def assign_splits(
     stratify: str | None,
     group: str | None,
     train_only: str | None = "_train_only",
+    links: Sequence[str] = (),
+    history: pl.DataFrame | Path | None = None,
 ) -> SplitResult:
     """Assign every row of ``table`` to train, validation or test.
 
@@ -146,12 +197,27 @@ def assign_splits(
 
     The table needs a unique, non-null String ``row_id`` column. See the module docstring for the
     method and its invariants.
+
+    ``links`` names further columns (such as the near-duplicate step's ``_cluster``) whose equal
+    non-null values must also stay in one split: units are then the connected components of
+    "same group value" or "same link value" (see :func:`linked_groups`).
+
+    ``history`` (stable splits across versions): the previous version's assignment, as a frame of
+    ``row_id`` and ``split`` or as the previous output folder (see :func:`load_split_history`).
+    A row found there keeps its split; only new rows are allocated (see :func:`_assign_units`).
     """
+    present = [c for c in links if c in table.columns and table.get_column(c).null_count() < table.height]
+    if present:
+        own_group = group
+        table = table.with_columns(linked_groups(table, [*([group] if group else []), *present]).alias(LINKED_GROUP))
+        group = LINKED_GROUP
     wanted = _check_fractions(fractions)
     _check_table(table, stratify=stratify, group=group)
 
     rows = _row_frame(table, stratify=stratify, group=group, train_only=train_only)
     units = _unit_frame(rows, seed=seed, grouped=group is not None)
+    if history is not None:
+        units = _with_history(rows, units, history)
     units = _assign_units(units, wanted)
 
     assigned = (
@@ -164,7 +230,49 @@ def assign_splits(
     notes = _notes(
         rows.with_columns(assigned), units, wanted, stratify=stratify, group=group, train_only=train_only
     )
+    if history is not None:
+        notes += _history_notes(rows.with_columns(assigned), units, wanted, stratify=stratify)
+    if present:
+        notes = [n.replace(f"`{LINKED_GROUP}`", f"`{own_group}`" if own_group else "group") for n in notes
+                 if own_group or "were each treated as a group of their own" not in n]
     return SplitResult(assignment=assigned.alias("split"), notes=notes)
+
+
+LINKED_GROUP = "_linked_group"
+
+
+def linked_groups(table: pl.DataFrame, columns: Sequence[str]) -> pl.Series:
+    """Per row, the connected component of "shares a non-null value in one of ``columns``".
+
+    A component is named ``"link:" + its smallest row_id`` (string order), so the name does not
+    depend on row order; a row that shares no value with another row gets null (a unit of its
+    own, exactly as without links). Linear: a sparse rows-values graph and scipy's search.
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    n = table.height
+    rows_parts, node_parts, offset = [], [], 0
+    for k, column in enumerate(columns):  # one iteration per column
+        values = table.get_column(column).cast(pl.String)
+        codes = pl.DataFrame({"v": values}).select(pl.col("v").rank("dense")).to_series()
+        ok = values.is_not_null().to_numpy()
+        code = codes.to_numpy()[ok].astype(np.int64) - 1
+        rows_parts.append(np.flatnonzero(ok))
+        node_parts.append(n + offset + code)
+        offset += int(code.max()) + 1 if code.size else 0
+    r = np.concatenate(rows_parts)
+    v = np.concatenate(node_parts)
+    size = n + offset
+    graph = coo_matrix((np.ones(r.size, dtype=np.int8), (r, v)), shape=(size, size))
+    _, comp = connected_components(graph, directed=False)
+    comp = comp[:n]
+    frame = pl.DataFrame({"c": comp, "row_id": table.get_column("row_id")}).with_columns(
+        pl.len().over("c").alias("n"), pl.col("row_id").min().over("c").alias("first")
+    )
+    return frame.select(
+        pl.when(pl.col("n") > 1).then(pl.concat_str([pl.lit("link:"), pl.col("first")])).alias(LINKED_GROUP)
+    ).to_series()
 
 
 def split_tables(table: pl.DataFrame, result: SplitResult) -> dict[str, pl.DataFrame]:
@@ -305,22 +413,54 @@ def _assign_units(units: pl.DataFrame, wanted: list[float]) -> pl.DataFrame:
     """Add a ``split`` column to the units.
 
     Within a stratum, units are laid out in key order along a line of the stratum's row count,
-    which is cut at ``allocate(rows, wanted)``; a unit goes to the split holding its midpoint
-    (computed doubled, ``2 * start + size``, to stay in integers). A cut then lands at most half a
-    unit away from its target, so each split is off by at most the largest unit, and a split with
-    fraction 0 (an empty interval) never gets a unit. Train-only units go to train unallocated.
+    which is cut at the stratum's share of :func:`allocate_strata`; a unit goes to the split holding
+    its midpoint (computed doubled, ``2 * start + size``, to stay in integers). A cut then lands at
+    most half a unit away from its target, so each split is off by at most the largest unit, and a
+    split with fraction 0 (an empty interval) never gets a unit. Train-only units go to train
+    unallocated.
+
+    Strata are allocated largest first, ties by the smallest unit key in the stratum: an order that
+    depends on the seed and the row ids only, never on the class names (renaming invariance).
+
+    With a split history (an ``_old`` column, see :func:`_with_history`), units that have an old
+    split keep it, and only the new units are laid out: each split of a stratum gets the rows it
+    lacks against the stratum's target (never fewer than 0), so the per-class counts come as close
+    to the target as the kept rows allow.
     """
-    only = units.filter(pl.col("_train_only")).with_columns(pl.lit("train").alias("split"))
-    free = units.filter(~pl.col("_train_only"))
+    if "_old" not in units.columns:
+        units = units.with_columns(pl.lit(None, dtype=pl.String).alias("_old"))
+    old = pl.col("_old").is_not_null()
+    kept = units.filter(old).with_columns(pl.col("_old").alias("split"))
+    only = units.filter(~old & pl.col("_train_only")).with_columns(pl.lit("train").alias("split"))
+    free = units.filter(~old & ~pl.col("_train_only"))
     # Ties in `_key` are practically impossible (64 bits), but the unit identity breaks them so
     # the order is total and does not depend on input order.
     free = free.sort(["_stratum", "_key", "_unit_row", "_unit"])
 
-    totals = free.group_by("_stratum", maintain_order=True).agg(pl.col("_size").sum().alias("_rows"))
+    counted = pl.concat(
+        [
+            kept.filter(~pl.col("_train_only")).select("_stratum", "_size", "_key", "split"),
+            free.select("_stratum", "_size", "_key", pl.lit(None, dtype=pl.String).alias("split")),
+        ],
+        how="vertical",
+    )
+    strata = (
+        counted.group_by("_stratum")
+        .agg(
+            pl.col("_size").sum().alias("_rows"),
+            pl.col("_key").min().alias("_first_key"),
+            *[pl.col("_size").filter(pl.col("split") == name).sum().alias(f"_kept_{name}") for name in SPLITS],
+        )
+        .sort(["_rows", "_first_key"], descending=[True, False])
+    )
+    targets = allocate_strata([int(n) for n in strata.get_column("_rows")], wanted)
     bounds = []
-    for stratum, n in totals.iter_rows():   # one iteration per class, not per row
-        n_train, n_validation, _ = allocate(int(n), wanted)
-        bounds.append((stratum, n_train, n_train + n_validation))
+    for record, target in zip(strata.iter_rows(named=True), targets):   # one iteration per class
+        have = [int(record[f"_kept_{name}"]) for name in SPLITS]
+        new = int(record["_rows"]) - sum(have)
+        need = [max(0, t - h) for t, h in zip(target, have)]
+        counts = need if sum(need) == new else (allocate(new, need) if new else [0, 0, 0])
+        bounds.append((record["_stratum"], counts[0], counts[0] + counts[1]))
     bounds_frame = pl.DataFrame(
         bounds, schema={"_stratum": pl.UInt32, "_cut1": pl.UInt64, "_cut2": pl.UInt64}, orient="row"
     )
@@ -338,7 +478,7 @@ def _assign_units(units: pl.DataFrame, wanted: list[float]) -> pl.DataFrame:
         )
         .drop("_cut1", "_cut2")
     )
-    return pl.concat([free, only], how="vertical")
+    return pl.concat([free, only, kept.select(free.columns)], how="vertical")
 
 
 # --- notes for the card --------------------------------------------------------------------------
@@ -442,3 +582,98 @@ def _class_notes(rows: pl.DataFrame, wanted: list[float], *, stratify: str) -> l
 
 def _rows(n: int) -> str:
     return f"{n} row" if n == 1 else f"{n} rows"
+
+
+# --- stable splits across versions ---------------------------------------------------------------
+
+
+def load_split_history(folder: Path, *, shown: str | None = None) -> pl.DataFrame:
+    """``row_id`` and ``split`` of every row in a previous output folder's three split files.
+
+    Raises :class:`InputError` naming the file when a split file is missing or unreadable, or
+    when a row id appears in two splits (then it is not a prep output).
+    """
+    shown = shown or str(folder)
+    parts = []
+    for name in SPLITS:
+        path = Path(folder) / f"{name}.parquet"
+        where = f"{shown}/{name}.parquet"
+        if not path.is_file():
+            raise InputError(
+                "the split history needs the previous output's three split files, and this one is missing.",
+                file=where,
+            )
+        try:
+            ids = pl.read_parquet(path, columns=["row_id"])
+        except Exception as exc:  # polars/pyarrow errors: translated at the reading boundary
+            raise InputError(
+                f"cannot read the `row_id` column of this split file ({type(exc).__name__}).", file=where
+            ) from exc
+        parts.append(ids.select(pl.col("row_id").cast(pl.String), pl.lit(name).alias("split")))
+    history = pl.concat(parts, how="vertical")
+    repeated = history.height - history.get_column("row_id").n_unique()
+    if repeated:
+        raise InputError(f"{_rows(repeated)} of the split history appear in more than one split.", file=shown)
+    return history
+
+
+def _with_history(rows: pl.DataFrame, units: pl.DataFrame, history: pl.DataFrame | Path) -> pl.DataFrame:
+    """Add ``_old``: the split a unit had in the previous version, or null for a new unit.
+
+    A unit whose rows were in several splits before (possible only if the grouping changed) takes
+    the split most of its old rows were in, ties in the order train, validation, test.
+    """
+    if not isinstance(history, pl.DataFrame):
+        history = load_split_history(history)
+    old = history.select(pl.col("row_id").cast(pl.String), pl.col("split").cast(pl.String).alias("_old_split"))
+    ident = ["_unit_row", "_unit"]
+    rank = pl.col("_old_split").replace_strict({n: i for i, n in enumerate(SPLITS)}, return_dtype=pl.UInt8)
+    per_unit = (
+        rows.select(*ident, "row_id")
+        .join(old, on="row_id", how="inner")
+        .group_by([*ident, "_old_split"])
+        .agg(pl.len().alias("_n"))
+        .with_columns(rank.alias("_rank"))
+        .sort([*ident, "_n", "_rank"], descending=[False, False, True, False])
+        .group_by(ident, maintain_order=True)
+        .agg(pl.col("_old_split").first().alias("_old"))
+    )
+    return units.join(per_unit, on=ident, how="left", maintain_order="left")
+
+
+def _history_notes(
+    rows: pl.DataFrame, units: pl.DataFrame, wanted: list[float], *, stratify: str | None
+) -> list[str]:
+    """How a split with history went: rows kept, rows new, and the drift from the target proportions."""
+    kept_units = units.filter(pl.col("_old").is_not_null()).select("_unit_row", "_unit")
+    kept = rows.join(kept_units, on=["_unit_row", "_unit"], how="semi").height
+    notes = [
+        f"Stable split: {_rows(kept)} kept the split they had in the previous version; "
+        f"{_rows(rows.height - kept)} are new and were allocated to bring each class towards its target."
+    ]
+    if not rows.height:
+        return notes
+    count_of = dict(rows.group_by("split").len().iter_rows())
+    shares = ", ".join(
+        f"{name} {count_of.get(name, 0) / rows.height:.1%} (target {f:.1%})" for name, f in zip(SPLITS, wanted)
+    )
+    notes.append(f"Stable split: the splits hold {shares} of the rows.")
+    if stratify is None:
+        return notes
+    per_class = (
+        rows.group_by("_class")
+        .agg(pl.len().alias("_n"), *[(pl.col("split") == name).sum().alias(name) for name in SPLITS])
+        .sort("_class", nulls_last=True)
+    )
+    worst = (-1.0, None, None)
+    for record in per_class.iter_rows(named=True):   # one iteration per class
+        for name, f in zip(SPLITS, wanted):
+            off = abs(record[name] - record["_n"] * f)
+            if off > worst[0] + 1e-9:
+                worst = (off, record["_class"], name)
+    who = f"class `{worst[1]}`" if worst[1] is not None else f"the rows without a `{stratify}` value"
+    notes.append(
+        f"Stable split: the largest drift of a class from its exact target is {worst[0]:.1f} rows "
+        f"({who}, split `{worst[2]}`)."
+    )
+    return notes

@@ -1,17 +1,35 @@
-"""The output folder: written into a temporary sibling folder, renamed into place only when complete.
+"""The output folder: written into a temporary sibling folder, swapped into place only when complete.
 
 Layout of a finished output folder: the split and ledger Parquet files, the card files, and
 ``manifest.json`` written last. A folder counts as prep's own (and may be replaced) only if it
 holds a ``manifest.json`` whose ``tool`` is ``prep``; an empty folder may be used too. Anything
-else is refused, so prep never deletes files it did not write.
+else is refused (``force`` overrides that one refusal), so prep never deletes files it did not write.
+
+Crash safety (a process killed at any instant, SIGKILL included):
+
+* everything is written into ``.<out>.prep-tmp-<pid>-<8 hex>`` beside ``out``; that folder holds the
+  marker file :data:`MARKER` from its creation until just before the swap, and ``manifest.json`` is
+  written last, so a temporary folder is never mistaken for a finished output;
+* the swap is one atomic ``renameat2(RENAME_EXCHANGE)`` on Linux: at every instant ``out`` is either
+  the complete previous output or the complete new one. Where the exchange is not available the old
+  folder is first renamed to ``.<out>.prep-old-<pid>-<8 hex>`` and a later run puts it back if the
+  process died between the two renames;
+* the folder swapped out gets the marker before it is deleted, and the marker is deleted last;
+* a later run (:func:`clean_stale`) removes leftover folders of earlier runs, and only those: the
+  name must match the pattern above for this ``out``, the process that made it must be gone, and the
+  folder must hold the marker or a prep manifest. Nothing else is ever touched.
 """
 
 from __future__ import annotations
 
+import ctypes
+import errno
 import hashlib
 import json
 import os
+import re
 import shutil
+import sys
 import uuid
 from pathlib import Path
 from typing import Any
@@ -22,6 +40,12 @@ from prep.errors import OutputError
 
 MANIFEST = "manifest.json"
 TOOL_NAME = "prep"
+# Present in every folder prep is writing or deleting, never in a finished output folder.
+MARKER = ".prep-incomplete"
+_LEFTOVER = re.compile(r"^\.(?P<out>.+)\.prep-(?P<kind>tmp|old)-(?P<pid>[0-9]+)-[0-9a-f]{8}$")
+# renameat2(2) flag and the "current directory" file descriptor, from <linux/fs.h> and <fcntl.h>.
+_RENAME_EXCHANGE = 2
+_AT_FDCWD = -100
 
 
 def sha256_file(path: Path) -> str:
@@ -37,95 +61,295 @@ def dumps_json(data: Any) -> str:
     return json.dumps(data, indent=2, sort_keys=True, ensure_ascii=False) + "\n"
 
 
-def is_prep_output(folder: Path) -> bool:
-    manifest = folder / MANIFEST
+def _manifest(folder: Path) -> dict[str, Any] | None:
     try:
-        data = json.loads(manifest.read_text(encoding="utf-8"))
+        data = json.loads((folder / MANIFEST).read_text(encoding="utf-8"))
     except (OSError, ValueError):
+        return None
+    return data if isinstance(data, dict) and data.get("tool") == TOOL_NAME else None
+
+
+def is_prep_output(folder: Path) -> bool:
+    """``folder`` holds a prep manifest and no marker of an unfinished write."""
+    return _manifest(folder) is not None and not (folder / MARKER).exists()
+
+
+def verify_output(folder: Path) -> list[str]:
+    """What is wrong with a finished output folder: [] when the manifest is there, valid, and every file
+    it lists has the recorded size and SHA-256."""
+    manifest = _manifest(folder)
+    if manifest is None:
+        return [f"no valid {MANIFEST}"]
+    problems = []
+    if (folder / MARKER).exists():
+        problems.append(f"the marker {MARKER} of an unfinished write is present")
+    for name, info in sorted(manifest.get("files", {}).items()):
+        path = folder / name
+        if not path.is_file():
+            problems.append(f"{name}: missing")
+        elif path.stat().st_size != info.get("bytes") or sha256_file(path) != info.get("sha256"):
+            problems.append(f"{name}: differs from the manifest")
+    return problems
+
+
+def leftover_name(out: Path, kind: str) -> str:
+    """Name of a temporary (``tmp``) or swapped-out (``old``) folder of this process beside ``out``."""
+    return f".{out.name}.prep-{kind}-{os.getpid()}-{uuid.uuid4().hex[:8]}"
+
+
+def _pid_alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
         return False
-    return isinstance(data, dict) and data.get("tool") == TOOL_NAME
+    except PermissionError:
+        return True  # someone else's process
+    except OSError:
+        return False
+    return True
 
 
-def check_output_folder(out: Path, inputs: list[Path], *, shown: str) -> None:
-    """Refuse an output folder that is a file, holds an input file, or holds files prep did not write."""
+def _leftovers(out: Path) -> list[tuple[Path, str]]:
+    """Folders beside ``out`` left by prep runs that are over: (path, kind), sorted by name."""
+    try:
+        entries = sorted(out.parent.iterdir())
+    except OSError:
+        return []
+    found = []
+    for entry in entries:
+        match = _LEFTOVER.match(entry.name)
+        if match is None or match["out"] != out.name or entry.is_symlink() or not entry.is_dir():
+            continue
+        if _pid_alive(int(match["pid"])):
+            continue  # a run in progress (or this one)
+        if (entry / MARKER).is_file() or _manifest(entry) is not None:
+            found.append((entry, match["kind"]))
+    return found
+
+
+def _write_marker(folder: Path) -> None:
+    (folder / MARKER).write_text(dumps_json({"tool": TOOL_NAME, "pid": os.getpid()}), encoding="utf-8")
+
+
+def _remove_own(folder: Path) -> None:
+    """Delete a folder prep made, marker last, so that a kill half-way leaves it recognisable."""
+    if not (folder / MARKER).exists():
+        _write_marker(folder)
+    for entry in folder.iterdir():
+        if entry.name == MARKER:
+            continue
+        if entry.is_dir() and not entry.is_symlink():
+            shutil.rmtree(entry)
+        else:
+            entry.unlink()
+    (folder / MARKER).unlink()
+    folder.rmdir()
+
+
+def clean_stale(out: Path) -> list[str]:
+    """Put back or remove what killed runs left beside ``out``; returns the names handled.
+
+    If ``out`` is missing and a swapped-out previous output survives whole (the process died between
+    the two renames of the fallback swap), it becomes ``out`` again. Every other leftover is removed.
+    """
+    handled = []
+    for entry, kind in _leftovers(out):
+        if kind == "old" and not out.exists() and not out.is_symlink() and not verify_output(entry):
+            try:
+                os.rename(entry, out)
+                handled.append(entry.name)
+                continue
+            except OSError:
+                pass
+        try:
+            _remove_own(entry)
+        except OSError:
+            continue  # best effort: never fail a run over a leftover
+        handled.append(entry.name)
+    return handled
+
+
+def _exchange(a: Path, b: Path) -> bool:
+    """Atomically swap two folders (Linux renameat2 RENAME_EXCHANGE); False where unsupported."""
+    if not sys.platform.startswith("linux"):
+        return False
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        renameat2 = libc.renameat2
+    except (OSError, AttributeError):
+        return False
+    renameat2.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p, ctypes.c_uint]
+    renameat2.restype = ctypes.c_int
+    if renameat2(_AT_FDCWD, os.fsencode(a), _AT_FDCWD, os.fsencode(b), _RENAME_EXCHANGE) == 0:
+        return True
+    code = ctypes.get_errno()
+    if code in (errno.ENOSYS, errno.EINVAL, errno.ENOTSUP, errno.EOPNOTSUPP):
+        return False
+    raise OSError(code, os.strerror(code))
+
+
+def _inside(path: Path, folder: Path) -> bool:
+    try:
+        path.relative_to(folder)
+    except ValueError:
+        return False
+    return True
+
+
+def check_output_folder(out: Path, inputs: list[Path], *, shown: str, force: bool = False) -> None:
+    """Refuse an output folder prep must not replace.
+
+    Always refused: a path that is a file or a symbolic link, a folder that contains an input file (or
+    the pipeline file, when the caller lists it in ``inputs``), and a folder that contains the current
+    working folder. Refused unless ``force``: a non-empty folder without a prep manifest.
+    """
+    again = "Choose another `output` or `--out`."
+    if out.is_symlink():
+        raise OutputError(f"The output path `{shown}` is a symbolic link; prep replaces its output folder and will not follow it. {again}")
     if out.exists() and not out.is_dir():
-        raise OutputError(f"The output path `{shown}` is a file, not a folder. Choose another `output` or `--out`.")
+        raise OutputError(f"The output path `{shown}` is a file, not a folder. {again}")
     out_abs = out.resolve()
     for path in inputs:
-        try:
-            path.resolve().relative_to(out_abs)
-        except ValueError:
-            continue
-        raise OutputError(
-            f"The output folder `{shown}` contains an input file; prep replaces its output folder on every run "
-            "and will not risk deleting inputs. Choose another `output` or `--out`."
-        )
-    if out.is_dir() and any(out.iterdir()) and not is_prep_output(out):
+        if _inside(path.resolve(), out_abs):
+            raise OutputError(
+                f"The output folder `{shown}` contains an input file; prep replaces its output folder on every run "
+                f"and will not risk deleting inputs. {again}"
+            )
+    if _inside(Path.cwd().resolve(), out_abs):
+        raise OutputError(f"The output folder `{shown}` contains the current working folder; prep will not replace it. {again}")
+    if out.is_dir() and not force and any(out.iterdir()) and not is_prep_output(out):
         raise OutputError(
             f"The output folder `{shown}` is not empty and was not written by prep (no prep manifest.json). "
-            "Choose an empty or new folder so that prep does not overwrite files it did not write."
+            "Choose an empty or new folder so that prep does not overwrite files it did not write, "
+            "or pass --force to replace that folder and everything in it."
         )
+
+
+def prepare_output(out: Path, inputs: list[Path], *, shown: str, force: bool = False) -> list[str]:
+    """Before a run: put back or remove leftovers of killed runs (:func:`clean_stale`), then
+    :func:`check_output_folder`. Returns the names of the leftovers handled."""
+    handled = clean_stale(out)
+    check_output_folder(out, inputs, shown=shown, force=force)
+    return handled
+
+
+def _os_reason(exc: BaseException) -> str:
+    # strerror is the OS's own wording; the filename attribute would carry an absolute path.
+    if isinstance(exc, OSError) and exc.strerror:
+        return exc.strerror
+    return type(exc).__name__
 
 
 class OutputFolder:
     """A temporary folder beside ``out``; :meth:`commit` swaps it into place.
 
     Use as a context manager: on any exception the temporary folder is removed and ``out``
-    is left exactly as it was.
+    is left exactly as it was. A process killed before :meth:`commit` finishes leaves ``out``
+    exactly as it was too, and a marked temporary folder that a later run removes.
     """
 
     def __init__(self, out: Path) -> None:
         self.out = out
-        self.tmp = out.parent / f".{out.name}.prep-tmp-{os.getpid()}-{uuid.uuid4().hex[:8]}"
+        self.tmp = out.parent / leftover_name(out, "tmp")
         self.files: dict[str, dict[str, Any]] = {}
 
     def __enter__(self) -> "OutputFolder":
         try:
             self.out.parent.mkdir(parents=True, exist_ok=True)
             self.tmp.mkdir()
+            _write_marker(self.tmp)
         except OSError as exc:
-            raise OutputError(f"Cannot create the output folder next to `{self.out.name}` ({exc.strerror}).") from exc
+            raise OutputError(f"Cannot create the output folder next to `{self.out.name}` ({_os_reason(exc)}).") from exc
         return self
 
     def __exit__(self, exc_type, exc, tb) -> None:
-        if exc_type is not None:
-            shutil.rmtree(self.tmp, ignore_errors=True)
+        if exc_type is not None and self.tmp.exists():
+            try:
+                _remove_own(self.tmp)
+            except OSError:
+                shutil.rmtree(self.tmp, ignore_errors=True)
 
     def path(self, name: str) -> Path:
         return self.tmp / name
 
+    def _failed(self, name: str, exc: BaseException) -> OutputError:
+        return OutputError(f"Cannot write `{name}` into the output folder `{self.out.name}` ({_os_reason(exc)}).")
+
     def write_parquet(self, name: str, frame: pl.DataFrame) -> dict[str, Any]:
         path = self.path(name)
-        # Fixed compression and statistics settings: same frame, same polars version -> same bytes.
-        frame.write_parquet(path, compression="zstd", compression_level=3, statistics=True)
-        info = {"rows": frame.height, "bytes": path.stat().st_size, "sha256": sha256_file(path)}
+        try:
+            # Fixed compression and statistics settings: same frame, same polars version -> same bytes.
+            frame.write_parquet(path, compression="zstd", compression_level=3, statistics=True)
+            info = {"rows": frame.height, "bytes": path.stat().st_size, "sha256": sha256_file(path)}
+        except (OSError, pl.exceptions.PolarsError) as exc:
+            raise self._failed(name, exc) from exc
         self.files[name] = info
         return info
 
     def write_text(self, name: str, text: str) -> dict[str, Any]:
         path = self.path(name)
-        path.write_text(text, encoding="utf-8", newline="\n")
-        info = {"bytes": path.stat().st_size, "sha256": sha256_file(path)}
+        try:
+            path.write_text(text, encoding="utf-8", newline="\n")
+            info = {"bytes": path.stat().st_size, "sha256": sha256_file(path)}
+        except OSError as exc:
+            raise self._failed(name, exc) from exc
         self.files[name] = info
         return info
 
+    def write_csv(self, name: str, frame: pl.DataFrame) -> dict[str, Any]:
+        """A CSV for people (e.g. a review export), with every cell neutralised against formula
+        injection (:func:`neutralise_formulas`); RFC 4180 quoting, CRLF line breaks, UTF-8."""
+        safe = frame.with_columns(neutralise_formulas(pl.col(c).cast(pl.String)).alias(c) for c in frame.columns)
+        text = safe.write_csv(quote_style="always", line_terminator="\r\n", include_header=True)
+        return self.write_text(name, text)
+
     def commit(self, manifest: dict[str, Any]) -> None:
-        """Write the manifest last, fsync, then swap the folder into place."""
+        """Write the manifest last, fsync, then swap the folder into place atomically."""
         manifest = dict(manifest, tool=TOOL_NAME, files=dict(sorted(self.files.items())))
         mpath = self.path(MANIFEST)
-        with open(mpath, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(dumps_json(manifest))
-            fh.flush()
-            os.fsync(fh.fileno())
-        old = None
         try:
-            if self.out.exists():
-                old = self.out.parent / f".{self.out.name}.prep-old-{os.getpid()}-{uuid.uuid4().hex[:8]}"
-                os.replace(self.out, old)
-            os.replace(self.tmp, self.out)
+            with open(mpath, "w", encoding="utf-8", newline="\n") as fh:
+                fh.write(dumps_json(manifest))
+                fh.flush()
+                os.fsync(fh.fileno())
+            (self.tmp / MARKER).unlink()
         except OSError as exc:
-            if old is not None and not self.out.exists():
-                os.replace(old, self.out)
-            raise OutputError(f"Cannot move the finished output into `{self.out.name}` ({exc.strerror}).") from exc
+            raise self._failed(MANIFEST, exc) from exc
+        try:
+            old = self._swap()
+        except OSError as exc:
+            raise OutputError(f"Cannot move the finished output into `{self.out.name}` ({_os_reason(exc)}).") from exc
         if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
+            try:
+                _remove_own(old)
+            except OSError:
+                pass  # the next run removes it (it is marked)
+
+    def _swap(self) -> Path | None:
+        """Put the temporary folder at ``out``; returns where the previous ``out`` now is, if any."""
+        if not self.out.exists():
+            os.rename(self.tmp, self.out)
+            return None
+        if _exchange(self.tmp, self.out):
+            return self.tmp
+        old = self.out.parent / leftover_name(self.out, "old")
+        os.rename(self.out, old)
+        try:
+            os.rename(self.tmp, self.out)
+        except OSError:
+            os.rename(old, self.out)
+            raise
+        return old
+
+
+# OWASP "CSV Injection": cells beginning with = + - @, tab (0x09) or carriage return (0x0D) may be read
+# as a formula by spreadsheet programs; prefix such a cell with a single quote (from memory of that page).
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+_FORMULA_PATTERN = r"^[=+\-@\t\r]"
+
+
+def neutralise_formulas(expr: pl.Expr) -> pl.Expr:
+    """``expr`` (String) with a ``'`` put before every value that starts like a spreadsheet formula."""
+    return pl.when(expr.str.contains(_FORMULA_PATTERN)).then(pl.lit("'") + expr).otherwise(expr)

@@ -756,7 +756,7 @@ def _by_time(tickets: list[Ticket], source: str) -> list[Ticket]:
     return rows
 
 
-def write_desk(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
+def write_desk(tickets: list[Ticket], path: Path, rng: random.Random, first: int = 0) -> int:
     """UTF-8 with BOM, CRLF, RFC 4180 quoting (the csv module's minimal quoting), multi-line bodies."""
     rows = _by_time(tickets, "desk")
     day_first = _formatted_times([t.epoch for t in rows], "%d/%m/%Y %H:%M")
@@ -774,7 +774,7 @@ def write_desk(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
             body = ""
         # The desk tool switched to ISO dates for a while: one source, two formats.
         opened = iso[n] if rng.random() < 0.05 else day_first[n]
-        writer.writerow([f"CS-{100000 + n}", title, body, _labels(t, "desk", rng), opened,
+        writer.writerow([f"CS-{100000 + first + n}", title, body, _labels(t, "desk", rng), opened,
                          _pick(rng, channels), t.person[2] if rng.random() < 0.9 else ""])
     path.write_bytes(buffer.getvalue().encode("utf-8-sig"))
     return len(rows)
@@ -795,7 +795,7 @@ def _escape(text: str, table: tuple[tuple[str, str], ...]) -> str:
 
 
 
-def write_webform(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
+def write_webform(tickets: list[Ticket], path: Path, rng: random.Random, first: int = 0) -> int:
     """JSON Lines; HTML in some bodies; nulls and missing keys; a few lines that are not JSON."""
     rows = _by_time(tickets, "webform")
     stamps = _formatted_times([t.epoch for t in rows], "%Y-%m-%dT%H:%M:%SZ")
@@ -811,7 +811,7 @@ def write_webform(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
             body = "".join(f"<p>{p}</p>" for p in paras) if rng.random() < 0.6 else "<br>\n".join(paras)
         else:
             body = "\n".join(paras)
-        record = {"ref": f"WF-{20000 + n}", "summary": title, "description": body,
+        record = {"ref": f"WF-{20000 + first + n}", "summary": title, "description": body,
                   "queue": _labels(t, "webform", rng), "ts": stamps[n], "origin": _pick(rng, origins),
                   "contact": t.person[2] if rng.random() < 0.85 else None}
         if t.empty == "all":
@@ -839,7 +839,7 @@ def write_webform(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
     return len(rows)
 
 
-def write_chat(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
+def write_chat(tickets: list[Ticket], path: Path, rng: random.Random, first: int = 0) -> int:
     """Parquet: no title column, the first message as body, a real UTC timestamp type."""
     rows = _by_time(tickets, "chat")
     bodies, topics, emails, widgets = [], [], [], []
@@ -857,7 +857,7 @@ def write_chat(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
         widgets.append("in-app" if rng.random() < 0.65 else "website")
     frame = pl.DataFrame(
         {
-            "conversation_id": pl.Series([880_000_000 + 7 * n for n in range(len(rows))], dtype=pl.Int64),
+            "conversation_id": pl.Series([880_000_000 + 7 * (first + n) for n in range(len(rows))], dtype=pl.Int64),
             "first_message": pl.Series(bodies, dtype=pl.String),
             "topic": pl.Series(topics, dtype=pl.String),
             "started_at": pl.from_epoch(pl.Series([t.epoch for t in rows], dtype=pl.Int64), time_unit="s")
@@ -870,7 +870,7 @@ def write_chat(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
     return len(rows)
 
 
-def write_legacy(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
+def write_legacy(tickets: list[Ticket], path: Path, rng: random.Random, first: int = 0) -> int:
     """latin-1, tab separated, one line per record, no quoting; a stray tab breaks a row or two."""
     rows = _by_time(tickets, "legacy")
     stamps = _formatted_times([t.epoch for t in rows], "%Y-%m-%d %H:%M:%S")
@@ -887,7 +887,7 @@ def write_legacy(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
         if n in stray:
             body = body.replace(" ", "\t", 1)  # pasted from a spreadsheet: the row now has a field too many
         email = t.person[2] if rng.random() < 0.7 else ""
-        lines.append("\t".join((f"L{700000 + n}", title, body, _labels(t, "legacy", rng) or "",
+        lines.append("\t".join((f"L{700000 + first + n}", title, body, _labels(t, "legacy", rng) or "",
                                 stamps[n], _pick(rng, media), email)))
     # strict: a character outside latin-1 is a bug in the templates, not something to hide.
     path.write_bytes(("\n".join(lines) + "\n").encode("latin-1"))
@@ -897,8 +897,20 @@ def write_legacy(tickets: list[Ticket], path: Path, rng: random.Random) -> int:
 WRITERS = {"desk": write_desk, "webform": write_webform, "chat": write_chat, "legacy": write_legacy}
 
 
-def generate(*, rows: int = DEFAULT_ROWS, seed: int = DEFAULT_SEED, out: Path = DEFAULT_OUT) -> dict[str, int]:
-    """Write the four exports into ``out``; return the number of records per file."""
+def generate(*, rows: int = DEFAULT_ROWS, seed: int = DEFAULT_SEED, out: Path = DEFAULT_OUT,
+             add_rows: int = 0) -> dict[str, int]:
+    """Write the four exports into ``out``; return the number of records per file.
+
+    ``add_rows`` > 0 makes a *later* export: the same files as without it, byte for byte in every
+    old record, followed by ``add_rows`` newer records (opened after the old ones, generated with
+    seed ``seed + 1``) appended to each file with ids that continue the old numbering. Rows keep
+    their ``row_id`` across the two versions, so ``prep compare`` can match them.
+    """
+    if add_rows:
+        if add_rows < 20:
+            raise ValueError(f"--add-rows must be at least 20 so that every source gets rows; got {add_rows}.")
+        counts = generate(rows=rows, seed=seed, out=out)
+        return _append_later(counts, rows=add_rows, seed=seed + 1, out=out)
     if rows < 20:
         raise ValueError(f"--rows must be at least 20 so that every source gets rows; got {rows}.")
     # Millions of small objects that all live to the end: the cyclic collector would only rescan them.
@@ -917,13 +929,44 @@ def generate(*, rows: int = DEFAULT_ROWS, seed: int = DEFAULT_SEED, out: Path = 
     return counts
 
 
+def _append_later(counts: dict[str, int], *, rows: int, seed: int, out: Path) -> dict[str, int]:
+    """Append ``rows`` newer records to the four files in ``out`` (see :func:`generate`)."""
+    import tempfile
+
+    tickets = make_tickets(rows, seed)
+    for t in tickets:
+        t.epoch += SPAN_SECONDS          # the later export covers the two years after the first
+    total = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        for index, source in enumerate(SOURCES):
+            part = Path(tmp) / FILE_NAMES[source]
+            added = WRITERS[source](tickets, part, random.Random(seed * 31 + index), first=counts[source])
+            target = out / FILE_NAMES[source]
+            if source == "chat":
+                frame = pl.concat([pl.read_parquet(target), pl.read_parquet(part)], how="vertical")
+                frame.write_parquet(target, compression="zstd", compression_level=9, statistics=False)
+            else:
+                data = part.read_bytes()
+                if source == "desk":
+                    data = data.removeprefix("\ufeff".encode("utf-8"))
+                    data = data[data.index(b"\r\n") + 2:]      # the header ends at the first CRLF
+                elif source == "legacy":
+                    data = data[data.index(b"\n") + 1:]
+                with target.open("ab") as handle:
+                    handle.write(data)
+            total[source] = counts[source] + added
+    return total
+
+
 def main(argv: Sequence[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description="Generate the invented Nimbrel Rides support-ticket exports.")
     parser.add_argument("--rows", type=int, default=DEFAULT_ROWS, help=f"total records (default {DEFAULT_ROWS})")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED, help=f"random seed (default {DEFAULT_SEED})")
     parser.add_argument("--out", type=Path, default=DEFAULT_OUT, help="output folder (default: exports/ beside this script)")
+    parser.add_argument("--add-rows", type=int, default=0,
+                        help="make a later export: the same records plus this many newer ones appended (default 0)")
     args = parser.parse_args(argv)
-    counts = generate(rows=args.rows, seed=args.seed, out=args.out)
+    counts = generate(rows=args.rows, seed=args.seed, out=args.out, add_rows=args.add_rows)
     print(", ".join(f"{FILE_NAMES[s]}: {counts[s]} records" for s in SOURCES))
 
 

@@ -27,7 +27,7 @@ from prep.facts import RunFacts
 from prep.ledger import Reason
 from prep.split import min_rows_for_all_splits
 
-CARD_VERSION = "1.0"
+CARD_VERSION = "1.1"
 TASK_KIND = "single-label classification"
 SPLITS = ("train", "validation", "test")
 ABOUT_FIELDS = ("purpose", "intended_use", "license", "maintainer", "contact")
@@ -38,8 +38,48 @@ FLOAT_DIGITS = 6
 #: The step of the ledger that records unreadable input records (written by the readers).
 READ_STEP = "read"
 
-#: Steps that later versions describe in their own section; until then the section says "not run".
-LATER_SECTIONS = {"near_duplicates": "near_duplicates", "redaction": "redact", "languages": "language"}
+#: Card sections filled from one step's facts (section key -> step name). A section reads
+#: {"status": "not run"} when that step is not in the pipeline.
+STEP_SECTIONS = {
+    "exact_duplicates": "exact_duplicates",
+    "near_duplicates": "near_duplicates",
+    "redaction": "redact",
+    "languages": "language",
+    "baseline": "baseline",
+    "suspect_labels": "suspect_labels",
+}
+#: Kept for code written against card version 1.0.
+LATER_SECTIONS = STEP_SECTIONS
+
+#: The facts each step reports for its section (the facts contract between steps and the card).
+#: A key the step did not report is null in the section; keys beyond these stay in ``steps``.
+STEP_FACT_KEYS = {
+    "exact_duplicates": ("groups", "rows_removed", "exact_duplicate_rows", "label_conflicts",
+                         "label_conflict_rows", "keep", "conflicts", "cluster_sizes"),
+    "near_duplicates": ("method", "shingles", "threshold", "permutations", "bands", "rows",
+                        "expected_recall_at_threshold", "candidates", "verified_pairs", "clusters",
+                        "rows_in_clusters", "rows_set_aside", "label_conflicts", "cluster_sizes",
+                        "action", "keep"),
+    "redact": ("kinds", "placeholders", "counts", "rows_changed", "columns"),
+    "language": ("column", "backend", "min_chars", "counts", "too_short", "keep", "rows_set_aside"),
+    "baseline": ("model", "features", "max_train_rows", "sampled", "seed", "metrics", "confusion", "note"),
+    "suspect_labels": ("folds", "threshold_rule", "flagged", "set_aside", "policy", "noise"),
+}
+
+#: Where the runner puts facts the card needs beyond the steps' own (RunFacts.extra keys).
+EXTRA_NEAR_DUPLICATE_AUDIT = "near_duplicate_audit"
+EXTRA_MISSING_BY_SOURCE = "missing_by_source"
+
+#: Splits on which metrics are measured, for the metric-noise section.
+METRIC_SPLITS = ("validation", "test")
+
+#: Observed recalls at which the Wilson interval width is reported: 0.5 gives the widest interval
+#: (the worst case), 0.9 a typical value for a usable classifier (common practice, no source).
+WILSON_RECALLS = {"width_at_recall_0_5": 0.5, "width_at_recall_0_9": 0.9}
+
+#: A language with fewer rows than this over all splits is listed under cautions.
+#: Rule of thumb, common practice, no source.
+FEW_LANGUAGE_ROWS = 30
 
 PERSONAL_DATA_NOTICE = (
     "Redaction of personal data is best-effort: pattern-based detection misses some personal "
@@ -73,9 +113,15 @@ SECTION_ORDER = (
     "provenance",
     "accounting",
     "personal_data_notice",
+    "metric_noise",
+    "text_length",
+    "missing_values",
+    "exact_duplicates",
     "near_duplicates",
     "redaction",
     "languages",
+    "baseline",
+    "suspect_labels",
     "cautions",
 )
 
@@ -218,6 +264,7 @@ def _balance(counts: dict[str, int]) -> dict[str, Any]:
         "imbalance_ratio": _round(stats.imbalance_ratio(counts)),
         "shannon_entropy": _round(stats.shannon_entropy(counts)),
         "pielou_evenness": _round(stats.pielou_evenness(counts)),
+        "imbalance_degree": _round(stats.imbalance_degree(counts)),
     }
 
 
@@ -227,7 +274,14 @@ def _section_imbalance(facts: RunFacts, d: _Derived) -> dict[str, Any]:
             "imbalance_ratio": "largest class count / smallest class count over all classes; null if a class has 0 rows",
             "shannon_entropy": "H = -sum p ln p in nats over the classes present (Shannon 1948)",
             "pielou_evenness": "H / ln K, K = classes present (Pielou 1966); null when K < 2",
+            "imbalance_degree": (
+                "ID = (m - 1) + d(zeta, e) / d(iota_m, e) over all K classes, m = classes below 1/K, "
+                "e = the balanced distribution, iota_m = the distribution with m minority classes farthest "
+                "from e; 0 = balanced, at most K - 1 (Ortigosa-Hernandez, Inza and Lozano, Pattern "
+                "Recognition Letters 98, 2017); null with fewer than 2 classes"
+            ),
         },
+        "imbalance_degree_distance": stats.IMBALANCE_DEGREE_DISTANCE,
         "by_split": {s: _balance(d.counts[s]) for s in SPLITS},
         "overall": _balance(d.total),
     }
@@ -253,17 +307,43 @@ def _section_recommended_averaging(facts: RunFacts, d: _Derived) -> dict[str, An
 
 
 def _section_label_merges(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    """Merges of label spellings, for the classes that reached the splits only.
+
+    ``normalise`` runs before ``missing``, so it also merges spellings of values that are later
+    found to mean "no label" (e.g. "n/a" and "N/A"), and of classes set aside later as rare;
+    those are not classes of the dataset and are left out (their names are in ``omitted``).
+    """
     step = next((s for s in facts.steps if s.name == "normalise"), None)
     if step is None:
         return {"status": "not run"}
     if "label_merges" not in step.facts:
         return {"status": "not reported"}
-    return {"status": "reported", "merges": step.facts["label_merges"]}
+    merges = step.facts["label_merges"]
+    if not isinstance(merges, list) or not all(isinstance(m, dict) and "class" in m for m in merges):
+        return {"status": "reported", "merges": merges, "omitted": []}
+    known = set(d.classes)
+    kept = [m for m in merges if m["class"] in known]
+    omitted = sorted({str(m["class"]) for m in merges if m["class"] not in known})
+    return {"status": "reported", "merges": kept, "omitted": omitted}
 
 
 def _section_leakage(facts: RunFacts, d: _Derived) -> dict[str, Any]:
     result = stats.exact_text_leakage(d.frames, facts.text)
-    return {"method": LEAKAGE_METHOD, "text_columns": list(facts.text), "clean": result["total"] == 0, **result}
+    audit = facts.extra.get(EXTRA_NEAR_DUPLICATE_AUDIT)
+    near = {"status": "not run"} if not isinstance(audit, dict) else {
+        "status": "ran",
+        "threshold": audit.get("threshold"),
+        "method": audit.get("method"),
+        "pairs": dict(audit.get("pairs") or {}),
+        "rows": dict(audit.get("rows") or {}),
+    }
+    return {
+        "method": LEAKAGE_METHOD,
+        "text_columns": list(facts.text),
+        "clean": result["total"] == 0,
+        **result,
+        "near_duplicate_audit": near,
+    }
 
 
 def _section_splits(facts: RunFacts, d: _Derived) -> dict[str, Any]:
@@ -291,6 +371,10 @@ def _section_provenance(facts: RunFacts, d: _Derived) -> dict[str, Any]:
         "tool": "prep",
         "tool_version": facts.tool_version,
         "seed": facts.seed,
+        "inputs": [
+            {"name": s.name, "path": _relative_path(s.path), "sha256": s.sha256, "bytes": s.bytes}
+            for s in facts.sources
+        ],
     }
 
 
@@ -310,23 +394,139 @@ def _section_personal_data_notice(facts: RunFacts, d: _Derived) -> str:
     return PERSONAL_DATA_NOTICE
 
 
-def _later(facts: RunFacts, step_name: str) -> dict[str, Any]:
-    """Placeholder for a section a later card version fills; says whether the step ran at all."""
-    if not any(s.name == step_name for s in facts.steps):
+def _step(facts: RunFacts, step_name: str):
+    """The first run of ``step_name`` in the pipeline, or None."""
+    return next((s for s in facts.steps if s.name == step_name), None)
+
+
+def _step_section(facts: RunFacts, step_name: str) -> dict[str, Any]:
+    """A section filled from one step's facts: ``{"status": "not run"}`` when it did not run,
+    else ``{"status": "ran", "step", "rows_in", "rows_out", "set_aside_by_reason", <contract keys>}`` with
+    null for a contract key the step did not report (so a reader always finds every key)."""
+    step = _step(facts, step_name)
+    if step is None:
         return {"status": "not run"}
-    return {"status": "see steps", "step": step_name}
+    reported = step.facts
+    section: dict[str, Any] = {
+        "status": "ran",
+        "step": step_name,
+        "rows_in": step.rows_in,
+        "rows_out": step.rows_out,
+        "set_aside_by_reason": dict(sorted(step.set_aside.items())),
+    }
+    for key in STEP_FACT_KEYS[step_name]:
+        section[key] = reported.get(key)
+    return section
+
+
+def _section_metric_noise(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    """How far a per-class recall measured on validation or test can be trusted.
+
+    For each class, its support in the split and the width of the 95% Wilson score interval
+    for a recall observed on that support, at an observed recall of 0.5 (widest) and 0.9.
+    """
+    by_split = {}
+    for split in METRIC_SPLITS:
+        rows = []
+        for c in d.classes:
+            n = d.counts[split][c]
+            rows.append({"class": c, "support": n, **{k: _round(stats.wilson_width(p, n)) for k, p in WILSON_RECALLS.items()}})
+        by_split[split] = rows
+    return {
+        "interval": "Wilson score interval",
+        "confidence": 0.95,
+        "z": _round(stats.Z_95),
+        "formula": (
+            "width = 2 z sqrt(n) / (n + z^2) * sqrt(p (1 - p) + z^2 / (4 n)), p = observed recall, n = support"
+        ),
+        "source": (
+            "Wilson, JASA 22 (1927) 209-212; form of Brown, Cai and DasGupta, Statistical Science 16 (2001) 101-133"
+        ),
+        "recalls": dict(WILSON_RECALLS),
+        "by_split": by_split,
+    }
+
+
+def _section_text_length(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return {
+        "unit": "Unicode code points of all text columns together",
+        "text_columns": list(facts.text),
+        "splits": list(SPLITS),
+        "quantile_rule": "nearest-rank method: the ceil(p n / 100)-th smallest length",
+        "by_class": stats.text_length_by_class([d.frames[s] for s in SPLITS], facts.label, facts.text),
+    }
+
+
+def _section_missing_values(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    recorded = facts.extra.get(EXTRA_MISSING_BY_SOURCE)
+    if not isinstance(recorded, dict):
+        return {"status": "not recorded"}
+    return {
+        "status": "recorded",
+        "when": "as read, before any step",
+        "definition": recorded.get("definition"),
+        "tokens": list(recorded.get("tokens") or []),
+        "by_source": list(recorded.get("by_source") or []),
+    }
+
+
+def _section_exact_duplicates(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    section = _step_section(facts, STEP_SECTIONS["exact_duplicates"])
+    step = _step(facts, STEP_SECTIONS["exact_duplicates"])
+    if step is not None and section["cluster_sizes"] is None and isinstance(step.facts.get("clusters"), list):
+        section["cluster_sizes"] = step.facts["clusters"]  # the step reports its sizes as `clusters`
+    return section
 
 
 def _section_near_duplicates(facts: RunFacts, d: _Derived) -> dict[str, Any]:
-    return _later(facts, LATER_SECTIONS["near_duplicates"])
+    return _step_section(facts, STEP_SECTIONS["near_duplicates"])
 
 
 def _section_redaction(facts: RunFacts, d: _Derived) -> dict[str, Any]:
-    return _later(facts, LATER_SECTIONS["redaction"])
+    section = _step_section(facts, STEP_SECTIONS["redaction"])
+    if section["status"] == "ran":
+        section["best_effort"] = PERSONAL_DATA_NOTICE
+    return section
 
 
 def _section_languages(facts: RunFacts, d: _Derived) -> dict[str, Any]:
-    return _later(facts, LATER_SECTIONS["languages"])
+    """The language step's facts, and the language mix per split and class from the splits."""
+    section = _step_section(facts, STEP_SECTIONS["languages"])
+    column = (section.get("column") if section["status"] == "ran" else None) or "language"
+    if any(column in d.frames[s].columns for s in SPLITS):
+        by_split = {s: stats.value_mix(d.frames[s], column) for s in SPLITS}
+        frames = [d.frames[s] for s in SPLITS if column in d.frames[s].columns and facts.label in d.frames[s].columns]
+        both = pl.concat([f.select(facts.label, column) for f in frames]) if frames else pl.DataFrame()
+        mix = {"column": column, "by_split": by_split, "by_class": stats.value_mix(both, column, by=facts.label)}
+        if section["status"] == "not run":
+            section = {"status": "not run", "mix": mix}  # a `language` column came from the sources
+        else:
+            section["mix"] = mix
+    elif section["status"] == "ran":
+        section["mix"] = None
+    return section
+
+
+def _section_baseline(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return _step_section(facts, STEP_SECTIONS["baseline"])
+
+
+def _section_suspect_labels(facts: RunFacts, d: _Derived) -> dict[str, Any]:
+    return _step_section(facts, STEP_SECTIONS["suspect_labels"])
+
+
+def _language_totals(facts: RunFacts, d: _Derived) -> dict[str, int] | None:
+    column = "language"
+    step = _step(facts, STEP_SECTIONS["languages"])
+    if step is not None and isinstance(step.facts.get("column"), str):
+        column = step.facts["column"]
+    if not any(column in d.frames[s].columns for s in SPLITS):
+        return None
+    totals: dict[str, int] = {}
+    for s in SPLITS:
+        for lang, n in stats.value_mix(d.frames[s], column).items():
+            totals[lang] = totals.get(lang, 0) + n
+    return dict(sorted(totals.items()))
 
 
 def _section_cautions(facts: RunFacts, d: _Derived) -> dict[str, Any]:
@@ -340,7 +540,16 @@ def _section_cautions(facts: RunFacts, d: _Derived) -> dict[str, Any]:
         or (minimum is not None and d.total[c] < minimum)
     ]
     conflicts = int(facts.ledger.filter(pl.col("reason") == Reason.LABEL_CONFLICT.value).height)
-    redacted = any(s.name == LATER_SECTIONS["redaction"] for s in facts.steps)
+    redaction = _step(facts, STEP_SECTIONS["redaction"])
+    redacted = redaction is not None
+    replaced = redaction.facts.get("counts") if redaction is not None else None
+    replaced_total = sum(v for v in replaced.values() if isinstance(v, int)) if isinstance(replaced, dict) else None
+    near = _step(facts, STEP_SECTIONS["near_duplicates"])
+    near_conflicts = near.facts.get("label_conflicts") if near is not None else None
+    suspect = _step(facts, STEP_SECTIONS["suspect_labels"])
+    flagged = suspect.facts.get("flagged") if suspect is not None else None
+    languages = _language_totals(facts, d)
+    few = None if languages is None else [lang for lang, n in languages.items() if n < FEW_LANGUAGE_ROWS]
     return {
         "rare_classes": {
             "rule": "a class is rare when it is missing from a split that should have rows, or has fewer "
@@ -349,12 +558,24 @@ def _section_cautions(facts: RunFacts, d: _Derived) -> dict[str, Any]:
             "classes": rare,
         },
         "label_conflict_rows": conflicts,
+        "near_duplicate_label_conflicts": near_conflicts if isinstance(near_conflicts, int) else None,
+        "suspect_labels_flagged": flagged if isinstance(flagged, int) else None,
         "redaction_ran": redacted,
+        "values_redacted": replaced_total,
         "residual_personal_data": (
-            "Redaction ran; residual personal data is still possible (see the personal data notice)."
+            "Redaction ran"
+            + (f" and replaced {replaced_total} values" if replaced_total is not None else "")
+            + "; residual personal data is still possible: pattern-based redaction is best-effort and "
+            "does not find names, addresses or data in unusual formats (see the personal data notice)."
             if redacted
-            else "No redaction step ran: the texts may contain personal data."
+            else "No redaction step ran: the texts may contain personal data such as names, e-mail "
+            "addresses, phone and card numbers."
         ),
+        "languages_with_few_rows": None if few is None else {
+            "rule": f"fewer than {FEW_LANGUAGE_ROWS} rows over all splits (rule of thumb, common practice, no source)",
+            "threshold": FEW_LANGUAGE_ROWS,
+            "languages": few,
+        },
     }
 
 
@@ -385,7 +606,7 @@ def _plain(value: Any, *, where: str) -> Any:
         ) from exc
 
 
-__all__ = ["CARD_VERSION", "SECTION_ORDER", "build_card"]
+__all__ = ["CARD_VERSION", "SECTION_ORDER", "STEP_FACT_KEYS", "STEP_SECTIONS", "build_card"]
 
 # Every section in SECTION_ORDER has a builder; fail at import rather than at the first run.
 assert all(f"_section_{key}" in globals() for key in SECTION_ORDER), "a card section has no builder"

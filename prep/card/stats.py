@@ -233,3 +233,179 @@ def exact_text_leakage(splits: Mapping[str, pl.DataFrame], text: Sequence[str]) 
     leaked = occurrences.filter(pl.col("len") > 1).select("key")
     rows = sum(k.join(leaked, on="key", how="semi").height for k in keys.values())
     return {"total": rows, "texts": leaked.height, "pairs": pairs}
+
+
+# --- imbalance degree (Ortigosa-Hernandez, Inza and Lozano 2017) -----------------------------
+
+#: Distance used for the imbalance degree in the card. Hellinger is one of the distances the
+#: paper studies (from memory: it compares Euclidean, Chebyshev, Manhattan, Kullback-Leibler,
+#: Hellinger, total variation and chi-square); it is bounded and defined for zero probabilities.
+IMBALANCE_DEGREE_DISTANCE = "hellinger"
+
+
+def _distance(p: Sequence[float], q: Sequence[float], name: str) -> float:
+    """A distance between two probability vectors of the same length, by name."""
+    if name == "euclidean":
+        return math.sqrt(math.fsum((a - b) ** 2 for a, b in zip(p, q)))
+    if name == "hellinger":
+        # H(p, q) = (1/sqrt 2) * || sqrt p - sqrt q ||_2, in [0, 1].
+        return math.sqrt(math.fsum((math.sqrt(a) - math.sqrt(b)) ** 2 for a, b in zip(p, q))) / math.sqrt(2)
+    if name == "total_variation":
+        return 0.5 * math.fsum(abs(a - b) for a, b in zip(p, q))
+    if name == "manhattan":
+        return math.fsum(abs(a - b) for a, b in zip(p, q))
+    if name == "chebyshev":
+        return max((abs(a - b) for a, b in zip(p, q)), default=0.0)
+    raise ValueError(f"unknown distance `{name}`")
+
+
+def imbalance_degree(counts: Mapping[str, int], distance: str = IMBALANCE_DEGREE_DISTANCE) -> float | None:
+    """Imbalance degree ID(zeta) of Ortigosa-Hernandez, Inza and Lozano, "Measuring the
+    class-imbalance extent of multi-class problems", Pattern Recognition Letters 98 (2017) 32-38.
+
+    With K classes (every class in ``counts``, also those with 0 rows), the class distribution
+    zeta, the balanced distribution e = (1/K, ..., 1/K) and m the number of minority classes
+    (zeta_i < 1/K)::
+
+        ID(zeta) = (m - 1) + d(zeta, e) / d(iota_m, e)          (0 when m = 0: balanced)
+
+    where iota_m is the distribution with m minority classes farthest from e: m classes at 0,
+    K - m - 1 classes at 1/K and one class at 1 - (K - m - 1)/K. ID lies in [0, K - 1]; its
+    integer part counts the minority classes beyond the first. None with fewer than two classes
+    or no rows. Formula from memory of the paper; the tests check it on hand-computed examples.
+    """
+    k = len(counts)
+    total = sum(counts.values())
+    if k < 2 or total == 0:
+        return None
+    zeta = [counts[c] / total for c in sorted(counts)]
+    # Compare counts, not floats: zeta_i < 1/K  <=>  K * n_i < n.
+    m = sum(1 for c in counts if k * counts[c] < total)
+    if m == 0:
+        return 0.0
+    e = [1.0 / k] * k
+    iota = [0.0] * m + [1.0 / k] * (k - m - 1) + [1.0 - (k - m - 1) / k]
+    return (m - 1) + _distance(zeta, e, distance) / _distance(iota, e, distance)
+
+
+# --- how noisy a per-class recall is: the Wilson score interval ------------------------------
+
+#: z for a two-sided 95% interval: the 0.975 quantile of the standard normal distribution.
+Z_95 = 1.959963984540054
+
+
+def wilson_interval(successes: int, n: int, z: float = Z_95) -> tuple[float, float] | None:
+    """Wilson score interval for a binomial proportion (Wilson, "Probable inference, the law of
+    succession, and statistical inference", JASA 22 (1927) 209-212; in the form of Brown, Cai and
+    DasGupta, "Interval estimation for a binomial proportion", Statistical Science 16 (2001)
+    101-133, eq. 4)::
+
+        centre = (k + z^2/2) / (n + z^2)
+        half   = z * sqrt(n) / (n + z^2) * sqrt(p (1 - p) + z^2 / (4 n)),   p = k / n
+
+    None when n = 0.
+    """
+    if n <= 0:
+        return None
+    p = successes / n
+    denom = n + z * z
+    centre = (successes + z * z / 2) / denom
+    half = z * math.sqrt(n) / denom * math.sqrt(p * (1 - p) + z * z / (4 * n))
+    return max(0.0, centre - half), min(1.0, centre + half)
+
+
+def wilson_width(p: float, n: int, z: float = Z_95) -> float | None:
+    """Width of the Wilson interval for an observed proportion ``p`` on ``n`` trials (k = p n,
+    which need not be an integer here: this is the width the formula gives at that proportion).
+
+    The width is largest at p = 0.5, so ``wilson_width(0.5, n)`` is the worst case for a
+    per-class recall measured on a class with support n. None when n = 0.
+    """
+    if n <= 0:
+        return None
+    return 2 * z * math.sqrt(n) / (n + z * z) * math.sqrt(p * (1 - p) + z * z / (4 * n))
+
+
+# --- text length, missing values, language mix -----------------------------------------------
+
+#: Quantiles (in percent) of text length per class kept in the card (the box chart draws them).
+LENGTH_QUANTILES = {"p10": 10, "p25": 25, "median": 50, "p75": 75, "p90": 90}
+
+
+def text_length_by_class(frames: Sequence[pl.DataFrame], label: str, text: Sequence[str]) -> list[dict]:
+    """Per class: rows, min, p10, p25, median, p75, p90, max and mean of the text length.
+
+    Length = Unicode code points of all text columns together (a null column counts 0).
+    Quantiles use the nearest-rank method: the p-th percentile of n sorted values is the
+    ceil(p n / 100)-th smallest (computed in integers, so no float rounding decides a rank);
+    every value is a length that occurs. Classes sorted by name; rows without a label are skipped.
+    """
+    parts = [f for f in frames if f.height and label in f.columns]
+    if not parts:
+        return []
+    present = [c for c in text if c in parts[0].columns]
+    length = pl.sum_horizontal([pl.col(c).fill_null("").str.len_chars() for c in present]) if present else pl.lit(0)
+    data = pl.concat([f.select(pl.col(label).alias("c"), length.cast(pl.Int64).alias("n")) for f in parts])
+    data = data.filter(pl.col("c").is_not_null())
+    aggs = [
+        pl.len().alias("rows"),
+        pl.col("n").min().alias("min"),
+        *[
+            pl.col("n").sort().gather(((pl.len().cast(pl.Int64) * p + 99) // 100 - 1).clip(0)).first().alias(k)
+            for k, p in LENGTH_QUANTILES.items()
+        ],
+        pl.col("n").max().alias("max"),
+        pl.col("n").mean().alias("mean"),
+    ]
+    out = data.group_by("c").agg(aggs).sort("c")
+    rows = []
+    for r in out.iter_rows(named=True):
+        item = {"class": r["c"], "rows": int(r["rows"])}
+        for key in ("min", *LENGTH_QUANTILES, "max"):
+            item[key] = int(r[key])
+        item["mean"] = round(float(r["mean"]), 1)
+        rows.append(item)
+    return rows
+
+
+def missing_by_source(table: pl.DataFrame, columns: Sequence[str], tokens: Sequence[str], blank: str) -> list[dict]:
+    """Missing cells per source and column in the table as read (before any step).
+
+    A cell is missing when it is null, holds only characters of ``blank`` (white space and
+    zero-width characters), or equals a token of ``tokens`` case-insensitively after trimming.
+    Returns ``[{"source", "column", "rows", "missing"}]`` in source order (first appearance),
+    then the order of ``columns``.
+    """
+    if table.height == 0 or "source" not in table.columns:
+        return []
+    lowered = [t.lower() for t in tokens]
+    exprs = []
+    for c in columns:
+        trimmed = pl.col(c).cast(pl.String).str.strip_chars(blank)
+        missing = pl.col(c).is_null() | (trimmed == "") | trimmed.str.to_lowercase().is_in(lowered)
+        exprs.append(missing.sum().alias(c))
+    grouped = table.group_by("source", maintain_order=True).agg(pl.len().alias("_rows"), *exprs)
+    out = []
+    for r in grouped.iter_rows(named=True):
+        for c in columns:
+            out.append({"source": r["source"], "column": c, "rows": int(r["_rows"]), "missing": int(r[c])})
+    return out
+
+
+def value_mix(frame: pl.DataFrame, column: str, by: str | None = None) -> dict:
+    """Counts of each value of ``column`` (null counted as "und"), overall or per value of ``by``.
+
+    ``{value: n}`` sorted by value, or ``{group: {value: n}}`` sorted by group then value.
+    """
+    if frame.height == 0 or column not in frame.columns:
+        return {}
+    col = pl.col(column).cast(pl.String).fill_null("und").alias("_v")
+    if by is None:
+        counts = frame.select(col).group_by("_v").len().sort("_v")
+        return {v: int(n) for v, n in counts.iter_rows()}
+    data = frame.select(pl.col(by).alias("_g"), col).filter(pl.col("_g").is_not_null())
+    counts = data.group_by("_g", "_v").len().sort("_g", "_v")
+    out: dict[str, dict[str, int]] = {}
+    for g, v, n in counts.iter_rows():
+        out.setdefault(g, {})[v] = int(n)
+    return out

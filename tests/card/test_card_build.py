@@ -40,7 +40,7 @@ def test_schema_is_a_valid_draft_2020_12_schema():
     schema = card_schema()
     assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"
     Draft202012Validator.check_schema(schema)
-    assert schema["properties"]["card_version"] == {"const": CARD_VERSION} == {"const": "1.0"}
+    assert schema["properties"]["card_version"] == {"const": CARD_VERSION} == {"const": "1.1"}
     # The schema and the builder agree on the sections.
     assert set(schema["required"]) == set(schema["properties"]) == set(SECTION_ORDER)
 
@@ -77,7 +77,7 @@ def test_schema_rejects_broken_cards(make_facts, breakage):
 def test_top_level_keys_in_order(make_facts):
     card = build_card(make_facts())
     assert list(card) == list(SECTION_ORDER)
-    assert card["card_version"] == "1.0"
+    assert card["card_version"] == "1.1"
     assert card["task"] == {"kind": "single-label classification", "label_column": "label", "text_columns": ["title", "body"]}
 
 
@@ -191,12 +191,20 @@ def test_steps_sources_splits_and_provenance(make_facts):
     assert train["rows"] == 10 and train["file"] == "train.parquet"
     assert train["columns"][0] == {"name": "row_id", "type": "String"}
     assert card["splits"]["notes"] == facts.split_notes
-    assert card["provenance"] == {"pipeline_sha256": facts.pipeline_sha256, "tool": "prep", "tool_version": "0.1.0", "seed": 7}
+    assert card["provenance"] == {
+        "pipeline_sha256": facts.pipeline_sha256, "tool": "prep", "tool_version": "0.1.0", "seed": 7,
+        "inputs": [
+            {"name": "desk", "path": "exports/desk.csv", "sha256": facts.sources[0].sha256, "bytes": 2048},
+            {"name": "web", "path": "exports/web.jsonl.gz", "sha256": facts.sources[1].sha256, "bytes": 99},
+        ],
+    }
 
 
 def test_label_merges_from_normalise(make_facts):
     card = build_card(make_facts())
-    assert card["label_merges"] == {"status": "reported", "merges": [{"class": "billing", "spellings": {"Billing": 1, "billing": 6}}]}
+    assert card["label_merges"] == {
+        "status": "reported", "merges": [{"class": "billing", "spellings": {"Billing": 1, "billing": 6}}], "omitted": [],
+    }
     facts = make_facts()
     without = build_card(make_facts(steps=facts.steps[1:]))
     assert without["label_merges"] == {"status": "not run"}

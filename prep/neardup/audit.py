@@ -1,0 +1,78 @@
+"""Cross-split leakage audit: near-duplicate pairs between validation/test and train.
+
+Run by the runner on the final splits, independently of the ``near_duplicates`` step (and also
+when the pipeline has no such step), with the step's settings when it has one. Counts only.
+
+Pairs are counted exactly over rows: k identical copies of a text in train and one in test are
+k pairs. A validation row leaks when some train row is a near duplicate of it (or identical);
+a test row leaks when some train or validation row is.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import polars as pl
+
+from prep.neardup.exhaustive import EXHAUSTIVE_MAX_ROWS
+from prep.neardup.search import Settings, find
+from prep.neardup.shingles import normalise_texts
+
+SPLITS = ("train", "validation", "test")
+
+
+def leakage_audit(
+    splits: dict[str, pl.DataFrame], columns: list[str], settings: Settings, punctuation: str = "space"
+) -> dict[str, Any]:
+    """``{threshold, method, pairs: {"validation~train", "test~train", "test~validation"}, rows: {validation, test}}``."""
+    parts = []
+    for name in SPLITS:
+        frame = splits.get(name)
+        if frame is None or frame.height == 0:
+            continue
+        present = [c for c in columns if c in frame.columns]
+        text = normalise_texts(frame, present, punctuation) if present else pl.Series("_text", [""] * frame.height)
+        parts.append(pl.DataFrame({"t": text, "s": pl.Series([name] * frame.height)}))
+    table = pl.concat(parts) if parts else pl.DataFrame(schema={"t": pl.String, "s": pl.String})
+    table = table.filter(pl.col("t") != "")
+    per_text = (
+        table.group_by("t")
+        .agg(*[(pl.col("s") == name).sum().cast(pl.Int64).alias(name) for name in SPLITS])
+        .sort("t")
+    )
+    method = settings.method
+    if method == "exhaustive" and per_text.height > EXHAUSTIVE_MAX_ROWS:
+        method = "minhash_lsh"
+    found = find(per_text.get_column("t"), Settings(**{**settings.__dict__, "method": method}))
+    # Pairs between distinct texts (no identical copies among them).
+    i, j = found.i, found.j
+    n = {name: per_text.get_column(name).to_numpy() for name in SPLITS}
+
+    def cross(a: str, b: str) -> int:
+        same = int(np.sum(n[a] * n[b]))
+        near = int(np.sum(n[a][i] * n[b][j] + n[a][j] * n[b][i]))
+        return same + near
+
+    def neighbour_has(split_names: tuple[str, ...]) -> np.ndarray:
+        has = np.zeros(per_text.height, dtype=bool)
+        for s in split_names:
+            has |= n[s] > 0
+        near = np.zeros(per_text.height, dtype=bool)
+        near[i[has[j]]] = True
+        near[j[has[i]]] = True
+        return has | near
+
+    return {
+        "threshold": settings.threshold,
+        "method": method,
+        "pairs": {
+            "validation~train": cross("validation", "train"),
+            "test~train": cross("test", "train"),
+            "test~validation": cross("test", "validation"),
+        },
+        "rows": {
+            "validation": int(np.sum(n["validation"][neighbour_has(("train",))])),
+            "test": int(np.sum(n["test"][neighbour_has(("train", "validation"))])),
+        },
+    }

@@ -1,0 +1,175 @@
+"""Compiled inner loops of the near-duplicate search (numba).
+
+Each kernel computes exactly what the numpy code beside it defines, value for value (the tests
+compare them on random input): the substring hash of :mod:`prep.neardup.shingles`, the MinHash
+of :mod:`prep.neardup.minhash`, the band keys of :mod:`prep.neardup.lsh` and the exact Jaccard
+of :mod:`prep.neardup.verify`. They exist because the numpy forms pay for a temporary array per
+step: measured on this project's 2-core machine, the (shingles x permutations) MinHash matrix
+costs ~10 ns per cell in numpy (broadcast multiply, add, ``minimum.reduceat``) against well
+under 1 ns per cell here (``tests/bench/test_bench_neardup.py`` prints both).
+
+Integer arithmetic is uint64 modulo 2**64 in both forms; the kernels use no floating point except
+the final Jaccard division, so results do not depend on the machine. Work is split over texts
+(``prange``), each output cell is written by exactly one thread: results do not depend on the
+number of threads.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange, uint64
+
+_M1 = uint64(0xBF58476D1CE4E5B9)
+_M2 = uint64(0x94D049BB133111EB)
+_EMPTY64 = uint64(0xFFFFFFFFFFFFFFFF)
+
+# Texts per parallel work item (amortises the per-item scratch buffer).
+_TEXTS_PER_ITEM = 512
+
+
+@njit(inline="always")
+def _splitmix(x):
+    x ^= x >> uint64(30)
+    x *= _M1
+    x ^= x >> uint64(27)
+    x *= _M2
+    x ^= x >> uint64(31)
+    return x
+
+
+@njit(cache=True, nogil=True)
+def substring_hashes(cps, starts, ends, base, length_salt):
+    """Fingerprint of each substring cps[starts[s]:ends[s]]: sum_k (c_k + 1) * base**(end-1-k)
+    (mod 2**64), xor (end - start) * length_salt, through SplitMix64. Uses the forward prefix
+    F[i] = F[i-1] * base + c_{i-1} + 1 and the powers of ``base``: F[end] - F[start] * base**(end-start)."""
+    total = cps.size
+    prefix = np.empty(total + 1, dtype=np.uint64)
+    powers = np.empty(total + 1, dtype=np.uint64)
+    prefix[0] = 0
+    powers[0] = 1
+    for p in range(total):
+        prefix[p + 1] = prefix[p] * base + uint64(cps[p]) + uint64(1)
+        powers[p + 1] = powers[p] * base
+    out = np.empty(starts.size, dtype=np.uint64)
+    for s in range(starts.size):
+        a, b = starts[s], ends[s]
+        h = prefix[b] - prefix[a] * powers[b - a]
+        h ^= uint64(b - a) * length_salt
+        out[s] = _splitmix(h)
+    return out
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def char_shingle_hashes(cps, text_start, lens, offsets, n, base, length_salt):
+    """Character n-gram fingerprints of every text, in CSR order (``offsets`` from the counts:
+    len - n + 1 shingles, or one for a non-empty text shorter than n). Same values as
+    :func:`substring_hashes` on the same substrings: each window is hashed by Horner's rule."""
+    m = lens.size
+    out = np.empty(offsets[m], dtype=np.uint64)
+    for t in prange(m):
+        ln = lens[t]
+        if ln == 0:
+            continue
+        w = n if ln >= n else ln
+        s0 = text_start[t]
+        o = offsets[t]
+        salt = uint64(w) * length_salt
+        for s in range(offsets[t + 1] - o):
+            h = uint64(0)
+            for q in range(w):
+                h = h * base + uint64(cps[s0 + s + q]) + uint64(1)
+            out[o + s] = _splitmix(h ^ salt)
+    return out
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def minhash(hashes, offsets, a, b):
+    """uint32 (texts x k): min over a text's shingles x of ((a_i * (x >> 32) + b_i) mod 2**64) >> 32;
+    0xFFFFFFFF for a text without shingles."""
+    m = offsets.size - 1
+    k = a.size
+    out = np.empty((m, k), dtype=np.uint32)
+    items = (m + _TEXTS_PER_ITEM - 1) // _TEXTS_PER_ITEM
+    for it in prange(items):
+        buf = np.empty(k, dtype=np.uint64)
+        for t in range(it * _TEXTS_PER_ITEM, min(m, (it + 1) * _TEXTS_PER_ITEM)):
+            for p in range(k):
+                buf[p] = _EMPTY64
+            for s in range(offsets[t], offsets[t + 1]):
+                x = hashes[s] >> uint64(32)
+                for p in range(k):
+                    v = a[p] * x + b[p]
+                    if v < buf[p]:
+                        buf[p] = v
+            for p in range(k):
+                out[t, p] = np.uint32(buf[p] >> uint64(32))
+    return out
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def band_keys(sigs, bands, rows):
+    """uint64 (texts x bands): key = band + 1, then for each row j of the band
+    key = splitmix64(key ^ ((sig << 16) + j)); the chain of :func:`prep.neardup.lsh.band_keys`."""
+    m = sigs.shape[0]
+    out = np.empty((m, bands), dtype=np.uint64)
+    for t in prange(m):
+        for band in range(bands):
+            key = uint64(band + 1)
+            for j in range(rows):
+                key = _splitmix(key ^ ((uint64(sigs[t, band * rows + j]) << uint64(16)) + uint64(j)))
+            out[t, band] = key
+    return out
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def sorted_sets(hashes, offsets):
+    """(values, offsets) of the distinct fingerprints of each text, sorted within each text."""
+    m = offsets.size - 1
+    sizes = np.zeros(m, dtype=np.int64)
+    work = hashes.copy()
+    for t in prange(m):
+        lo, hi = offsets[t], offsets[t + 1]
+        if hi - lo == 0:
+            continue
+        seg = np.sort(work[lo:hi])
+        c = 1
+        work[lo] = seg[0]
+        for q in range(1, seg.size):
+            if seg[q] != seg[q - 1]:
+                work[lo + c] = seg[q]
+                c += 1
+        sizes[t] = c
+    new_off = np.zeros(m + 1, dtype=np.int64)
+    for t in range(m):
+        new_off[t + 1] = new_off[t] + sizes[t]
+    values = np.empty(new_off[m], dtype=np.uint64)
+    for t in prange(m):
+        lo = offsets[t]
+        for q in range(sizes[t]):
+            values[new_off[t] + q] = work[lo + q]
+    return values, new_off
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def jaccard(values, offsets, i, j):
+    """Exact Jaccard |A∩B| / |A∪B| of sorted distinct sets (CSR) for each pair (i[p], j[p]);
+    0.0 when both are empty. Intersection by a merge of the two sorted runs."""
+    out = np.empty(i.size, dtype=np.float64)
+    for p in prange(i.size):
+        a0, a1 = offsets[i[p]], offsets[i[p] + 1]
+        b0, b1 = offsets[j[p]], offsets[j[p] + 1]
+        na, nb = a1 - a0, b1 - b0
+        inter = 0
+        while a0 < a1 and b0 < b1:
+            va, vb = values[a0], values[b0]
+            if va == vb:
+                inter += 1
+                a0 += 1
+                b0 += 1
+            elif va < vb:
+                a0 += 1
+            else:
+                b0 += 1
+        union = na + nb - inter
+        out[p] = inter / union if union > 0 else 0.0
+    return out

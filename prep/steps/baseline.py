@@ -1,0 +1,270 @@
+"""Step ``baseline``: a quick linear text classifier, trained on train and scored on validation and test.
+
+It gives the model search a floor to beat, not a model to deploy. It runs after the split
+(``PHASE = "splits"``) wherever it is listed, and never changes a split or sets a row aside.
+
+Method:
+
+- Text: the pipeline's text columns joined with a line break (a null counts as empty).
+- Features: TF-IDF over word n-grams and character n-grams (``char_wb``: n-grams inside word
+  boundaries), each hashed into ``2**HASH_BITS`` columns with scikit-learn's
+  ``HashingVectorizer`` (MurmurHash3 with a fixed seed, so the columns do not depend on the
+  data or on the order of rows), then ``TfidfTransformer`` (smoothed idf, sublinear tf, L2 rows)
+  fitted on the training rows only.
+- Classifier: logistic regression fitted by stochastic gradient descent (scikit-learn's
+  ``SGDClassifier(loss="log_loss")``, one-vs-rest) for a fixed number of epochs, seeded; class
+  weights "balanced" by default so that small classes count. Chosen over ``LogisticRegression``
+  (lbfgs) because that took minutes on a few thousand rows with hashed features here, while
+  SGD took seconds at the same scores (measured on the demo, tests/bench/).
+- Bounded in time: at most ``max_train_rows`` training rows (default :data:`MAX_TRAIN_ROWS`),
+  drawn per class in proportion (each class keeps ``ceil(n_c * max / n)`` rows, so the sample
+  may exceed the maximum by less than one row per class); the rows kept are those with the
+  smallest BLAKE2b keys of seed and ``row_id`` (:func:`prep.split.stable_keys`), so the sample
+  does not depend on row order. Validation and test are scored whole.
+- Metrics on validation and test: accuracy, balanced accuracy, macro F1 and F1 per class (over
+  the classes present in the split's true or predicted labels, as scikit-learn does by default),
+  and the confusion matrix. Rows without a label are not scored. Rounded to
+  :data:`METRIC_DECIMALS` decimals so that the card is byte-identical across runs.
+
+Outputs: ``baseline_predictions.parquet`` (row_id, source, source_row, split, label, predicted)
+for validation and test, and the facts ``model, features, max_train_rows, sampled, seed,
+metrics, confusion, note`` (plus ``train_rows``, ``classifier``, ``unscored_rows``).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+from typing import Any, Literal
+
+import numpy as np
+import polars as pl
+
+from prep.config import ConfigValueError
+from prep.split import stable_keys
+from prep.steps.base import StepContext
+
+NAME = "baseline"
+PHASE = "splits"
+
+# Defaults. Bounded run time: see tests/bench/test_after_split_bench.py for the measured cost at
+# 100,000 rows. The n-gram ranges are common practice for short texts, no source.
+MAX_TRAIN_ROWS = 50_000
+WORD_NGRAMS = (1, 2)
+CHAR_NGRAMS = (3, 4)
+HASH_BITS = 18            # 2**18 hashed columns per analyzer; collisions are rare at this size
+ALPHA = 1e-5              # L2 penalty of the SGD classifier (common practice for TF-IDF text, no source)
+EPOCHS = 15               # fixed passes over the data (no early stop): a bound on time, and deterministic
+METRIC_DECIMALS = 4
+SPLITS = ("train", "validation", "test")
+SCORED_SPLITS = ("validation", "test")
+
+NOTE = (
+    "A floor for the model search, not a model to deploy: a linear classifier on hashed TF-IDF word "
+    "and character n-grams, trained once with fixed settings and no tuning."
+)
+
+
+@dataclass(frozen=True)
+class Config:
+    """``baseline`` settings; see the module docstring."""
+
+    max_train_rows: int = MAX_TRAIN_ROWS
+    word_ngrams: list[int] | None = None      # [min, max]; default WORD_NGRAMS
+    char_ngrams: list[int] | None = None      # [min, max]; default CHAR_NGRAMS; [] switches them off
+    alpha: float = ALPHA
+    class_weight: Literal["balanced", "none"] = "balanced"
+    seed: int | None = None                   # default: the split's seed
+
+    def check(self) -> None:
+        if self.max_train_rows < 2:
+            raise ConfigValueError("max_train_rows", f"must be at least 2, got {self.max_train_rows}")
+        for key in ("word_ngrams", "char_ngrams"):
+            value = getattr(self, key)
+            if value is None or (key == "char_ngrams" and value == []):
+                continue
+            if len(value) != 2 or not 1 <= value[0] <= value[1]:
+                raise ConfigValueError(key, f"must be [min, max] with 1 <= min <= max, got {value}")
+        if not self.alpha > 0:
+            raise ConfigValueError("alpha", f"must be greater than 0, got {self.alpha}")
+        if self.seed is not None and self.seed < 0:
+            raise ConfigValueError("seed", "must be >= 0")
+
+
+# --- shared with suspect_labels --------------------------------------------------------------------
+
+
+def texts(frame: pl.DataFrame, columns: tuple[str, ...] | list[str]) -> list[str]:
+    """The text columns of ``frame`` joined with a line break, nulls as empty strings."""
+    present = [c for c in columns if c in frame.columns]
+    if not present or frame.height == 0:
+        return [""] * frame.height
+    joined = pl.concat_str([pl.col(c).cast(pl.String).fill_null("") for c in present], separator="\n")
+    return frame.select(joined.alias("_text")).get_column("_text").to_list()
+
+
+def word_range(config: Config) -> tuple[int, int]:
+    return tuple(config.word_ngrams) if config.word_ngrams else WORD_NGRAMS
+
+
+def char_range(config: Config) -> tuple[int, int] | None:
+    if config.char_ngrams == []:
+        return None
+    return tuple(config.char_ngrams) if config.char_ngrams else CHAR_NGRAMS
+
+
+def make_hasher(word: tuple[int, int], char: tuple[int, int] | None):
+    """Hashed word (+ character) n-gram counts. Stateless: the same text always gives the same row,
+    so the counts can be computed once and reused across cross-validation folds."""
+    from sklearn.feature_extraction.text import HashingVectorizer
+    from sklearn.pipeline import make_union
+
+    hashing = dict(n_features=2**HASH_BITS, alternate_sign=False, norm=None, lowercase=True, dtype=np.float64)
+    parts = [HashingVectorizer(analyzer="word", ngram_range=word, token_pattern=r"(?u)\b\w+\b", **hashing)]
+    if char is not None:
+        parts.append(HashingVectorizer(analyzer="char_wb", ngram_range=char, **hashing))
+    return make_union(*parts)
+
+
+def make_weighting():
+    """TF-IDF weighting of the hashed counts, fitted on training rows only."""
+    from sklearn.feature_extraction.text import TfidfTransformer
+
+    return TfidfTransformer(sublinear_tf=True)
+
+
+def make_classifier(alpha: float, class_weight: str, seed: int):
+    """Logistic regression by SGD: fixed epochs, seeded shuffling, so the same data gives the same model."""
+    from sklearn.linear_model import SGDClassifier
+
+    return SGDClassifier(
+        loss="log_loss", alpha=alpha, max_iter=EPOCHS, tol=None, random_state=seed,
+        class_weight=None if class_weight == "none" else "balanced",
+    )
+
+
+def fit_quietly(model, x, y):
+    """Fit without scikit-learn's convergence warnings (the iteration cap is deliberate)."""
+    from sklearn.exceptions import ConvergenceWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        return model.fit(x, y)
+
+
+def sample_per_class(frame: pl.DataFrame, label: str, max_rows: int, seed: int) -> pl.DataFrame:
+    """At most about ``max_rows`` rows, each class in proportion (``ceil(n_c * max / n)`` rows).
+
+    Keeps the rows with the smallest stable keys of ``row_id`` within each class, in the frame's
+    row order. Returns ``frame`` itself when it is small enough.
+    """
+    if frame.height <= max_rows:
+        return frame
+    keyed = frame.with_columns(stable_keys(frame.get_column("row_id"), seed=seed).alias("_sample_key"))
+    n = frame.height
+    quota = (pl.len().over(label).cast(pl.Float64) * max_rows / n).ceil()
+    rank = pl.col("_sample_key").rank("ordinal").over(label)
+    return keyed.filter(rank <= quota).drop("_sample_key")
+
+
+# --- the step --------------------------------------------------------------------------------------
+
+
+def _round(x: float) -> float:
+    return round(float(x), METRIC_DECIMALS)
+
+
+def scores(y_true: list[str], y_pred: list[str]) -> tuple[dict[str, Any], dict[str, Any]]:
+    """(metrics, confusion) of one split, computed with scikit-learn's metric functions."""
+    from sklearn.metrics import accuracy_score, balanced_accuracy_score, confusion_matrix, f1_score
+
+    labels = sorted(set(y_true) | set(y_pred))
+    with warnings.catch_warnings():
+        # balanced accuracy warns when a predicted class is absent from y_true; that is expected.
+        warnings.simplefilter("ignore", UserWarning)
+        balanced = balanced_accuracy_score(y_true, y_pred)
+    per_class = f1_score(y_true, y_pred, labels=labels, average=None, zero_division=0)
+    metrics = {
+        "rows": len(y_true),
+        "accuracy": _round(accuracy_score(y_true, y_pred)),
+        "balanced_accuracy": _round(balanced),
+        "macro_f1": _round(f1_score(y_true, y_pred, labels=labels, average="macro", zero_division=0)),
+        "per_class_f1": {c: _round(f) for c, f in zip(labels, per_class)},
+    }
+    matrix = confusion_matrix(y_true, y_pred, labels=labels)
+    return metrics, {"labels": labels, "matrix": [[int(v) for v in row] for row in matrix]}
+
+
+def apply_splits(splits: dict[str, pl.DataFrame], config: Config, ctx: StepContext) -> dict[str, pl.DataFrame]:
+    """Train on train, score validation and test, report the facts; the splits are returned unchanged."""
+    seed = ctx.seed if config.seed is None else config.seed
+    word, char = word_range(config), char_range(config)
+    features_fact = {
+        "text_columns": list(ctx.text),
+        "word_ngrams": list(word),
+        "char_ngrams": list(char) if char else None,
+        "char_analyzer": "char_wb" if char else None,
+        "hashed_columns_per_analyzer": 2**HASH_BITS,
+        "weighting": "tf-idf (smoothed idf, sublinear tf, L2-normalised rows)",
+    }
+    ctx.report("model", "logistic_regression_sgd")
+    ctx.report("features", features_fact)
+    ctx.report("classifier", {"loss": "log_loss", "alpha": config.alpha, "class_weight": config.class_weight,
+                              "epochs": EPOCHS, "solver": "sgd"})
+    ctx.report("max_train_rows", config.max_train_rows)
+    ctx.report("seed", seed)
+    ctx.report("note", NOTE)
+
+    label = ctx.label
+    train = splits["train"]
+    train = train.filter(pl.col(label).is_not_null()) if label in train.columns else train.clear()
+    sample = sample_per_class(train, label, config.max_train_rows, seed)
+    ctx.report("sampled", sample.height < train.height)
+    ctx.report("train_rows", sample.height)
+    classes = sample.get_column(label).unique().to_list() if sample.height else []
+    empty_metrics = {name: None for name in SCORED_SPLITS}
+    if len(classes) < 2:
+        ctx.report("metrics", empty_metrics)
+        ctx.report("confusion", empty_metrics)
+        ctx.report("skipped", "train holds fewer than two classes with a label, so there is nothing to learn.")
+        ctx.add_output("baseline_predictions", _predictions_frame([]))
+        return splits
+
+    hasher, weighting = make_hasher(word, char), make_weighting()
+    x_train = weighting.fit_transform(hasher.transform(texts(sample, ctx.text)))
+    model = fit_quietly(make_classifier(config.alpha, config.class_weight, seed), x_train, sample.get_column(label).to_list())
+
+    metrics, confusion, parts, unscored = {}, {}, [], {}
+    for name in SCORED_SPLITS:
+        frame = splits[name]
+        labelled = frame.filter(pl.col(label).is_not_null()) if label in frame.columns else frame.clear()
+        unscored[name] = frame.height - labelled.height
+        if labelled.height == 0:
+            metrics[name], confusion[name] = None, None
+            continue
+        predicted = model.predict(weighting.transform(hasher.transform(texts(labelled, ctx.text)))).tolist()
+        y_true = labelled.get_column(label).to_list()
+        metrics[name], confusion[name] = scores(y_true, predicted)
+        parts.append(
+            labelled.select(
+                "row_id", "source", "source_row", pl.lit(name).alias("split"), pl.col(label).cast(pl.String).alias("label")
+            ).with_columns(pl.Series("predicted", predicted, dtype=pl.String))
+        )
+    ctx.report("metrics", metrics)
+    ctx.report("confusion", confusion)
+    ctx.report("unscored_rows", unscored)
+    ctx.add_output("baseline_predictions", _predictions_frame(parts))
+    return splits
+
+
+def _predictions_frame(parts: list[pl.DataFrame]) -> pl.DataFrame:
+    schema = {"row_id": pl.String, "source": pl.String, "source_row": pl.Int64, "split": pl.String,
+              "label": pl.String, "predicted": pl.String}
+    if not parts:
+        return pl.DataFrame(schema=schema)
+    return pl.concat(parts, how="vertical").cast(schema)
+
+
+__all__ = ["NAME", "PHASE", "Config", "apply_splits", "texts", "make_hasher", "make_weighting", "make_classifier",
+           "sample_per_class",
+           "scores"]

@@ -1,0 +1,73 @@
+"""`prep card OUTPUT_DIR`: re-render the card files from card.json; refuse other folders."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import shutil
+
+from click.testing import CliRunner
+
+from prep.cli import cli
+
+
+def copy_output(demo_output, tmp_path):
+    target = tmp_path / "out"
+    shutil.copytree(demo_output, target)
+    return target
+
+
+def test_rerender_after_a_hand_edit(demo_output, tmp_path):
+    out = copy_output(demo_output, tmp_path)
+    before = (out / "card.html").read_text(encoding="utf-8")
+    card = json.loads((out / "card.json").read_text(encoding="utf-8"))
+    card["about"]["license"] = "CC-BY-4.0 (fixed by hand)"
+    (out / "card.json").write_text(json.dumps(card, indent=2), encoding="utf-8")
+    result = CliRunner().invoke(cli, ["card", str(out)])
+    assert result.exit_code == 0, result.output
+    assert "rendered card.md, card.html, croissant.json" in result.output
+    assert "CC-BY-4.0 (fixed by hand)" in (out / "card.md").read_text(encoding="utf-8")
+    html = (out / "card.html").read_text(encoding="utf-8")
+    assert "CC-BY-4.0 (fixed by hand)" in html and html != before
+    assert json.loads((out / "croissant.json").read_text())["license"] == "CC-BY-4.0 (fixed by hand)"
+    # The manifest's hashes stay true for every file it lists.
+    manifest = json.loads((out / "manifest.json").read_text())
+    for name, info in manifest["files"].items():
+        assert hashlib.sha256((out / name).read_bytes()).hexdigest() == info["sha256"], name
+
+
+def test_rerender_unchanged_card_gives_the_same_bytes(demo_output, tmp_path):
+    out = copy_output(demo_output, tmp_path)
+    result = CliRunner().invoke(cli, ["card", str(out)])
+    assert result.exit_code == 0, result.output
+    for name in ("card.md", "card.html", "croissant.json"):
+        assert (out / name).read_bytes() == (demo_output / name).read_bytes(), name
+
+
+def test_refuses_a_folder_that_is_not_a_prep_output(tmp_path):
+    (tmp_path / "card.json").write_text("{}", encoding="utf-8")
+    result = CliRunner().invoke(cli, ["card", str(tmp_path)])
+    assert result.exit_code == 1
+    assert "is not a prep output folder" in result.output
+    assert "Traceback" not in result.output
+    assert not (tmp_path / "card.html").exists()
+
+
+def test_broken_card_json_is_one_line_with_its_place(demo_output, tmp_path):
+    out = copy_output(demo_output, tmp_path)
+    (out / "card.json").write_text('{\n  "card_version": "1.1",\n  oops\n}\n', encoding="utf-8")
+    result = CliRunner().invoke(cli, ["card", str(out)])
+    assert result.exit_code == 1
+    assert "is not valid JSON" in result.output and "line 3" in result.output
+    assert len(result.output.strip().splitlines()) == 1
+
+
+def test_card_breaking_the_schema_is_refused(demo_output, tmp_path):
+    out = copy_output(demo_output, tmp_path)
+    card = json.loads((out / "card.json").read_text(encoding="utf-8"))
+    del card["classes"]
+    (out / "card.json").write_text(json.dumps(card), encoding="utf-8")
+    before = (out / "card.md").read_bytes()
+    result = CliRunner().invoke(cli, ["card", str(out)])
+    assert result.exit_code == 1 and "breaks the card schema" in result.output
+    assert (out / "card.md").read_bytes() == before

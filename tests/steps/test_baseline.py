@@ -1,0 +1,104 @@
+"""Tests of the baseline step.
+
+Reference: scikit-learn's metric functions (accuracy_score, balanced_accuracy_score, f1_score,
+confusion_matrix), a general-purpose library, recomputed here from the written predictions.
+All texts are invented.
+"""
+
+from __future__ import annotations
+
+import random
+
+import polars as pl
+import pytest
+from sklearn.metrics import accuracy_score, balanced_accuracy_score, confusion_matrix, f1_score
+
+from prep.steps.baseline import Config, apply_splits, sample_per_class
+
+WORDS = {
+    "Billing": "invoice charge refund payment receipt fee price overcharged twice card",
+    "Unlock & Docking": "dock unlock station bike scooter stuck lock bay latch handlebar",
+    "Lost & Found": "lost left phone wallet keys basket found bag forgot helmet",
+}
+
+
+def _frame(n: int, seed: int, noise: float = 0.3) -> pl.DataFrame:
+    """Invented tickets: each class draws mostly from its own words, partly from all words."""
+    rng = random.Random(seed)
+    every = " ".join(WORDS.values()).split()
+    rows = []
+    for i in range(n):
+        klass = list(WORDS)[(0, 0, 0, 1, 2)[i % 5]]   # imbalanced: macro and weighted averages differ
+        own = WORDS[klass].split()
+        body = " ".join(rng.choice(every) if rng.random() < noise else rng.choice(own) for _ in range(8))
+        rows.append({"row_id": f"w:{seed}-{i}", "source": "w", "source_row": i, "title": "Ticket" if i % 2 else None,
+                     "body": body, "label": klass if i % 17 else None})
+    return pl.DataFrame(rows, schema={"row_id": pl.String, "source": pl.String, "source_row": pl.Int64,
+                                      "title": pl.String, "body": pl.String, "label": pl.String})
+
+
+@pytest.fixture(scope="module")
+def splits():
+    return {"train": _frame(300, 1), "validation": _frame(90, 2, noise=0.8), "test": _frame(90, 3, noise=0.8)}
+
+
+def test_metrics_agree_with_scikit_learn_on_the_written_predictions(make_ctx, splits):
+    ctx = make_ctx("baseline")
+    out = apply_splits(splits, Config(), ctx)
+    assert all(out[s].equals(splits[s]) for s in splits)   # never changes a split
+    assert len(ctx.ledger) == 0
+    predictions = ctx.outputs["baseline_predictions"]
+    assert predictions.columns == ["row_id", "source", "source_row", "split", "label", "predicted"]
+    for name in ("validation", "test"):
+        part = predictions.filter(pl.col("split") == name)
+        y, p = part["label"].to_list(), part["predicted"].to_list()
+        # Every labelled row is scored, unlabelled ones are not.
+        assert part.height == splits[name]["label"].drop_nulls().len()
+        m = ctx.facts["metrics"][name]
+        labels = sorted(set(y) | set(p))
+        assert m["accuracy"] == pytest.approx(accuracy_score(y, p), abs=5e-5)
+        assert m["balanced_accuracy"] == pytest.approx(balanced_accuracy_score(y, p), abs=5e-5)
+        assert m["macro_f1"] == pytest.approx(f1_score(y, p, average="macro", zero_division=0), abs=5e-5)
+        per_class = f1_score(y, p, labels=labels, average=None, zero_division=0)
+        assert m["per_class_f1"] == {c: pytest.approx(f, abs=5e-5) for c, f in zip(labels, per_class)}
+        cm = ctx.facts["confusion"][name]
+        assert cm["labels"] == labels
+        assert cm["matrix"] == confusion_matrix(y, p, labels=labels).tolist()
+        # Noisy validation and test: not a perfect score, so the check above can fail.
+        assert 0.34 < m["accuracy"] < 1.0
+    assert ctx.facts["note"].startswith("A floor for the model search, not a model to deploy")
+    assert ctx.facts["sampled"] is False
+
+
+def test_deterministic(make_ctx, splits):
+    a, b = make_ctx("baseline"), make_ctx("baseline")
+    apply_splits(splits, Config(), a)
+    apply_splits(splits, Config(), b)
+    assert a.facts == b.facts
+    assert a.outputs["baseline_predictions"].equals(b.outputs["baseline_predictions"])
+
+
+def test_training_is_sampled_to_the_maximum(make_ctx, splits):
+    ctx = make_ctx("baseline")
+    apply_splits(splits, Config(max_train_rows=60), ctx)
+    assert ctx.facts["sampled"] is True
+    labelled = splits["train"]["label"].drop_nulls().len()
+    assert 60 <= ctx.facts["train_rows"] <= 60 + 3 < labelled    # at most one more row per class
+
+
+def test_sample_per_class_is_proportional_and_order_free():
+    frame = _frame(300, 4).filter(pl.col("label").is_not_null())
+    sample = sample_per_class(frame, "label", 50, seed=7)
+    counts = dict(sample.group_by("label").len().iter_rows())
+    sizes = dict(frame.group_by("label").len().iter_rows())
+    assert counts == {k: -(-n * 50 // frame.height) for k, n in sizes.items()}   # ceil(n_c * max / n)
+    shuffled = sample_per_class(frame.sample(fraction=1.0, shuffle=True, seed=1), "label", 50, seed=7)
+    assert set(shuffled["row_id"]) == set(sample["row_id"])
+
+
+def test_one_class_in_train_is_skipped(make_ctx, splits):
+    one = {**splits, "train": splits["train"].with_columns(pl.lit("Billing").alias("label"))}
+    ctx = make_ctx("baseline")
+    apply_splits(one, Config(), ctx)
+    assert ctx.facts["metrics"] == {"validation": None, "test": None}
+    assert "skipped" in ctx.facts
