@@ -52,6 +52,7 @@ class Reason(str, enum.Enum):
     RARE_CLASS = "rare_class"
     LANGUAGE = "language"
     UNSPLITTABLE = "unsplittable"
+    SUSPECT_LABEL = "suspect_label"
 
     def __str__(self) -> str:
         return self.value

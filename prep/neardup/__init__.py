@@ -1,6 +1,7 @@
 """Near-duplicate detection: shingling, MinHash, LSH banding, exact verification, clusters.
 
-A pure package (numpy, polars, scipy; rapidfuzz for the optional edit similarity). The step
+A pure package (numpy, polars, scipy, numba for the compiled kernels in ``kernels.py``; rapidfuzz
+for the optional edit similarity). The step
 ``prep.steps.near_duplicates`` and the runner's leakage audit (:mod:`prep.neardup.audit`) use it.
 """
 

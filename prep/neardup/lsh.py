@@ -125,6 +125,16 @@ def _bucket_pairs(ids: np.ndarray, keys: np.ndarray) -> tuple[np.ndarray, int]:
     return pairs, n_large
 
 
+def sorted_unique(values: np.ndarray) -> np.ndarray:
+    """np.unique of a 1-D array by a plain sort (numpy's SIMD sort; np.unique hashes first)."""
+    if values.size == 0:
+        return values
+    values = np.sort(values)
+    keep = np.ones(values.size, dtype=bool)
+    np.not_equal(values[1:], values[:-1], out=keep[1:])
+    return values[keep]
+
+
 def candidate_pairs(sigs: np.ndarray, bands: int, rows: int, active: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, int]:
     """(i, j, large buckets): unique candidate pairs i < j (int64 row indices, sorted) over all bands.
 
@@ -137,5 +147,5 @@ def candidate_pairs(sigs: np.ndarray, bands: int, rows: int, active: np.ndarray 
         p, n_large = _bucket_pairs(ids, keys[:, band])
         parts.append(p)
         large += n_large
-    pairs = np.unique(np.concatenate(parts)) if parts else np.zeros(0, dtype=np.uint64)
+    pairs = sorted_unique(np.concatenate(parts)) if parts else np.zeros(0, dtype=np.uint64)
     return (pairs >> np.uint64(32)).astype(np.int64), (pairs & np.uint64(0xFFFFFFFF)).astype(np.int64), large

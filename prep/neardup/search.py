@@ -5,12 +5,17 @@
    texts from filling LSH buckets.
 2. ``minhash_lsh``: representatives are shingled and signed in chunks (only the band keys are
    kept, so memory stays linear and small), candidate pairs come from the LSH buckets, and each
-   candidate is verified by its exact similarity. ``exhaustive``: every pair, exactly.
+   candidate is verified by its exact similarity (Jaccard: a merge of sorted shingle sets that
+   stops once the pair can no longer reach the threshold). ``exhaustive``: every pair, exactly.
 3. Clusters are the connected components of the verified pairs.
+
+The inner loops (fingerprints, MinHash, band keys, Jaccard) are compiled kernels
+(:mod:`prep.neardup.kernels`) that use both cores; the rest is numpy and polars.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -26,6 +31,9 @@ Similarity = Literal["jaccard", "edit"]
 
 # Texts are signed in chunks of this many, so that only their band keys outlive the chunk.
 SIGN_CHUNK_TEXTS = 65_536
+# Candidate pairs of the bands gathered so far are made unique once they exceed this many (8 bytes
+# each), so that memory follows the distinct pairs, not 'bands' times them.
+DEDUPE_EVERY_PAIRS = 1 << 24
 
 
 @dataclass(frozen=True)
@@ -56,43 +64,114 @@ class Found:
     facts: dict[str, Any] = field(default_factory=dict)
 
 
-def pair_similarity(texts: pl.Series, i: np.ndarray, j: np.ndarray, settings: Settings) -> np.ndarray:
-    """The configured exact similarity of each pair of normalised texts."""
+def pair_similarity(
+    texts: pl.Series, i: np.ndarray, j: np.ndarray, settings: Settings, *, at_least: float = 0.0
+) -> np.ndarray:
+    """The configured exact similarity of each pair of normalised texts. With ``at_least`` > 0
+    (Jaccard only), pairs below it may get -1.0 instead of their value (see :func:`verify.jaccard_pairs`)."""
     if i.size == 0:
         return np.zeros(0, dtype=np.float64)
     if settings.similarity == "edit":
         return verify.edit_similarity_pairs(texts, i, j)
-    rows = np.unique(np.concatenate([i, j]))
+    used = np.zeros(texts.len(), dtype=bool)
+    used[i] = True
+    used[j] = True
+    rows = np.flatnonzero(used)
+    local = np.cumsum(used) - 1  # row index -> position among the used rows
     sub = shingle(texts.gather(rows), settings.shingles, settings.shingle_n)
-    return verify.jaccard_pairs(sub, np.searchsorted(rows, i), np.searchsorted(rows, j))
+    return verify.jaccard_pairs(sub, local[i], local[j], at_least)
 
 
-def _band_keys(texts: list[str], settings: Settings, bands: int, rows: int) -> tuple[np.ndarray, np.ndarray]:
-    """(band keys (texts x bands), has-shingles flag) computed chunk by chunk."""
-    m = len(texts)
+class _KeyMemo:
+    """The band keys of the last LSH search, by text: the runner's leakage audit searches the texts
+    that the step just searched (minus the rows it set aside), and band keys are a pure function of
+    the text and the settings, so the audit looks them up instead of signing every text again.
+    A lookup gives exactly what signing would give; only one search is kept (its texts and keys)."""
+
+    def __init__(self) -> None:
+        self.params: tuple | None = None
+        self.texts: pl.Series | None = None
+        self.keys: np.ndarray | None = None
+        self.active: np.ndarray | None = None
+
+    def store(self, params: tuple, texts: pl.Series, keys: np.ndarray, active: np.ndarray) -> None:
+        self.params, self.texts, self.keys, self.active = params, texts, keys, active
+
+    def clear(self) -> None:
+        self.__init__()
+
+    def lookup(self, params: tuple, texts: pl.Series) -> np.ndarray:
+        """Position in the stored texts of each of ``texts`` (-1 when not stored)."""
+        if self.params != params or self.texts is None:
+            return np.full(texts.len(), -1, dtype=np.int64)
+        stored = pl.DataFrame({"t": self.texts}).with_row_index("k").unique("t", keep="first", maintain_order=True)
+        hit = pl.DataFrame({"t": texts}).join(stored, on="t", how="left", maintain_order="left")
+        return hit.get_column("k").fill_null(-1).cast(pl.Int64).to_numpy()
+
+
+_MEMO = _KeyMemo()
+
+
+def forget_keys() -> None:
+    """Drop the remembered band keys (the audit calls it when done)."""
+    _MEMO.clear()
+
+
+def _band_keys(
+    texts: pl.Series, settings: Settings, bands: int, rows: int, *, reuse: bool = False, remember: bool = False
+) -> tuple[np.ndarray, np.ndarray]:
+    """(band keys (texts x bands), has-shingles flag) computed chunk by chunk. ``reuse``: take the
+    keys of texts the last remembered search signed from it; ``remember``: keep these for reuse."""
+    m = texts.len()
+    params = (settings.shingles, settings.shingle_n, settings.permutations, bands, rows)
     keys = np.empty((m, bands), dtype=np.uint64)
     active = np.empty(m, dtype=bool)
-    for lo in range(0, m, SIGN_CHUNK_TEXTS):  # one iteration per chunk of texts
-        chunk = shingle(texts[lo:lo + SIGN_CHUNK_TEXTS], settings.shingles, settings.shingle_n)
+    known = _MEMO.lookup(params, texts) if reuse else np.full(m, -1, dtype=np.int64)
+    have = known >= 0
+    if have.any():
+        keys[have] = _MEMO.keys[known[have]]
+        active[have] = _MEMO.active[known[have]]
+    todo = np.flatnonzero(~have)
+    values = texts.gather(todo).to_list() if todo.size < m else texts.to_list()
+    for lo in range(0, todo.size, SIGN_CHUNK_TEXTS):  # one iteration per chunk of texts
+        chunk = shingle(values[lo:lo + SIGN_CHUNK_TEXTS], settings.shingles, settings.shingle_n)
         sigs = minhash.signatures(chunk, settings.permutations)
-        keys[lo:lo + sigs.shape[0]] = lsh.band_keys(sigs, bands, rows)
-        active[lo:lo + sigs.shape[0]] = chunk.counts > 0
+        at = todo[lo:lo + sigs.shape[0]]
+        keys[at] = lsh.band_keys(sigs, bands, rows)
+        active[at] = chunk.counts > 0
+    if remember:
+        _MEMO.store(params, texts, keys, active)
     return keys, active
 
 
 def _lsh_candidates(keys: np.ndarray, active: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
     ids = np.flatnonzero(active)
-    parts, large = [], 0
+    parts, large, pending = [], 0, 0
     for band in range(keys.shape[1]):  # one iteration per band
         p, n_large = lsh._bucket_pairs(ids, keys[ids, band])
         parts.append(p)
         large += n_large
-    pairs = np.unique(np.concatenate(parts)) if parts else np.zeros(0, dtype=np.uint64)
+        pending += p.size
+        if pending > DEDUPE_EVERY_PAIRS:  # bands repeat most pairs: drop repeats as they come
+            parts = [lsh.sorted_unique(np.concatenate(parts))]
+            pending = parts[0].size
+    pairs = lsh.sorted_unique(np.concatenate(parts)) if parts else np.zeros(0, dtype=np.uint64)
     return (pairs >> np.uint64(32)).astype(np.int64), (pairs & np.uint64(0xFFFFFFFF)).astype(np.int64), large
 
 
-def find(texts: pl.Series, settings: Settings) -> Found:
-    """Near-duplicate pairs and clusters among normalised ``texts`` (see the module docstring)."""
+def find(
+    texts: pl.Series,
+    settings: Settings,
+    *,
+    pair_filter: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
+    reuse_keys: bool = False,
+    remember_keys: bool = False,
+) -> Found:
+    """Near-duplicate pairs and clusters among normalised ``texts`` (see the module docstring).
+
+    ``pair_filter(i, j)`` (row indices) -> bool mask: LSH candidates it rejects are not verified
+    (the audit needs only pairs across splits). ``remember_keys`` keeps this search's band keys
+    for a later ``reuse_keys`` search (see :class:`_KeyMemo`); results are the same either way."""
     n_rows = texts.len()
     texts = texts.fill_null("")
     # 1. Identical texts: representative = first row of each distinct non-empty text.
@@ -123,13 +202,17 @@ def find(texts: pl.Series, settings: Settings) -> Found:
         bands, rows, p_at = lsh.choose_bands(
             settings.threshold, settings.permutations, settings.target_recall, bands=settings.bands, rows=settings.rows
         )
-        keys, active = _band_keys(rep_texts.to_list(), settings, bands, rows)
+        keys, active = _band_keys(rep_texts, settings, bands, rows, reuse=reuse_keys, remember=remember_keys)
         ci, cj, large = _lsh_candidates(keys, active)
         del keys
-        sim = pair_similarity(rep_texts, ci, cj, settings)
+        n_candidates = int(ci.size)
+        if pair_filter is not None:
+            wanted = pair_filter(reps[ci], reps[cj])
+            ci, cj = ci[wanted], cj[wanted]
+        sim = pair_similarity(rep_texts, ci, cj, settings, at_least=settings.threshold)
         facts.update(
             permutations=settings.permutations, bands=bands, rows=rows,
-            expected_recall_at_threshold=round(p_at, 6), candidates=int(ci.size), large_buckets=large,
+            expected_recall_at_threshold=round(p_at, 6), candidates=n_candidates, large_buckets=large,
         )
     ok = sim >= settings.threshold
     i = reps[ci[ok]]

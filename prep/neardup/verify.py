@@ -8,18 +8,23 @@ import polars as pl
 from prep.neardup.shingles import Shingled
 
 
-def jaccard_pairs(shingled: Shingled, i: np.ndarray, j: np.ndarray) -> np.ndarray:
+def jaccard_pairs(shingled: Shingled, i: np.ndarray, j: np.ndarray, threshold: float = 0.0) -> np.ndarray:
     """Exact Jaccard similarity |A∩B| / |A∪B| of the shingle sets of each pair (i[p], j[p]).
 
+    With a ``threshold`` > 0 only pairs reaching it are sure to get their value; the others may get
+    -1.0 (their merge stops early), so use the result only as ``similarity >= threshold``.
+
     Each text's fingerprints are sorted and made distinct once; each pair is then a merge of two
-    sorted runs (compiled, :mod:`prep.neardup.kernels`): time linear in the pairs' set sizes,
-    memory linear in the shingles."""
+    sorted runs (compiled, :func:`prep.neardup.kernels.jaccard`): time linear in the pairs' set
+    sizes, memory linear in the shingles."""
     from prep.neardup import kernels
 
     if i.size == 0:
         return np.zeros(0, dtype=np.float64)
     values, offsets = kernels.sorted_sets(shingled.hashes, shingled.offsets)
-    return kernels.jaccard(values, offsets, np.ascontiguousarray(i, dtype=np.int64), np.ascontiguousarray(j, dtype=np.int64))
+    i = np.ascontiguousarray(i, dtype=np.int64)
+    j = np.ascontiguousarray(j, dtype=np.int64)
+    return kernels.jaccard(values, offsets, i, j, float(threshold))
 
 
 def edit_similarity_pairs(texts: pl.Series, i: np.ndarray, j: np.ndarray) -> np.ndarray:

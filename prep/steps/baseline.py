@@ -12,7 +12,8 @@ Method:
   data or on the order of rows), then ``TfidfTransformer`` (smoothed idf, sublinear tf, L2 rows)
   fitted on the training rows only.
 - Classifier: logistic regression fitted by stochastic gradient descent (scikit-learn's
-  ``SGDClassifier(loss="log_loss")``, one-vs-rest) for a fixed number of epochs, seeded; class
+  ``SGDClassifier(loss="log_loss")``, one-vs-rest) for a number of epochs fixed by the row
+  count (:func:`epochs_for`), seeded; class
   weights "balanced" by default so that small classes count. Chosen over ``LogisticRegression``
   (lbfgs) because that took minutes on a few thousand rows with hashed features here, while
   SGD took seconds at the same scores (measured on the demo, tests/bench/).
@@ -47,14 +48,20 @@ from prep.steps.base import StepContext
 NAME = "baseline"
 PHASE = "splits"
 
-# Defaults. Bounded run time: see tests/bench/test_after_split_bench.py for the measured cost at
-# 100,000 rows. The n-gram ranges are common practice for short texts, no source.
-MAX_TRAIN_ROWS = 50_000
+# Defaults. Bounded run time: at 20,000 rows, hashing the n-grams took about 15 s and 5 epochs of
+# SGD about 13 s on one busy core here (measured with char n-grams 3-4; 4-4 took 9.5 s and 8.4 s,
+# word n-grams alone 3.4 s and 5.9 s); tests/bench/test_after_split_bench.py measures 100,000 rows. The n-gram ranges are common practice for short texts, no source.
+MAX_TRAIN_ROWS = 20_000
 WORD_NGRAMS = (1, 2)
 CHAR_NGRAMS = (3, 4)
 HASH_BITS = 18            # 2**18 hashed columns per analyzer; collisions are rare at this size
 ALPHA = 1e-5              # L2 penalty of the SGD classifier (common practice for TF-IDF text, no source)
-EPOCHS = 15               # fixed passes over the data (no early stop): a bound on time, and deterministic
+# Passes over the data (no early stop): a bound on time, and deterministic. Small data needs more
+# passes to converge, large data fewer: epochs = UPDATES / rows, kept within [MIN_EPOCHS, MAX_EPOCHS]
+# (5 at 20,000 rows, 20 below 5,000 rows). Own choice, checked on the demo and the tests' data.
+UPDATES = 100_000
+MIN_EPOCHS = 5
+MAX_EPOCHS = 20
 METRIC_DECIMALS = 4
 SPLITS = ("train", "validation", "test")
 SCORED_SPLITS = ("validation", "test")
@@ -133,12 +140,17 @@ def make_weighting():
     return TfidfTransformer(sublinear_tf=True)
 
 
-def make_classifier(alpha: float, class_weight: str, seed: int):
+def epochs_for(rows: int) -> int:
+    """Number of SGD passes for ``rows`` training rows (see UPDATES)."""
+    return int(min(MAX_EPOCHS, max(MIN_EPOCHS, -(-UPDATES // max(rows, 1)))))
+
+
+def make_classifier(alpha: float, class_weight: str, seed: int, rows: int):
     """Logistic regression by SGD: fixed epochs, seeded shuffling, so the same data gives the same model."""
     from sklearn.linear_model import SGDClassifier
 
     return SGDClassifier(
-        loss="log_loss", alpha=alpha, max_iter=EPOCHS, tol=None, random_state=seed,
+        loss="log_loss", alpha=alpha, max_iter=epochs_for(rows), tol=None, random_state=seed,
         class_weight=None if class_weight == "none" else "balanced",
     )
 
@@ -210,7 +222,8 @@ def apply_splits(splits: dict[str, pl.DataFrame], config: Config, ctx: StepConte
     ctx.report("model", "logistic_regression_sgd")
     ctx.report("features", features_fact)
     ctx.report("classifier", {"loss": "log_loss", "alpha": config.alpha, "class_weight": config.class_weight,
-                              "epochs": EPOCHS, "solver": "sgd"})
+                              "epochs": f"{UPDATES} / training rows, within [{MIN_EPOCHS}, {MAX_EPOCHS}]",
+                              "solver": "sgd"})
     ctx.report("max_train_rows", config.max_train_rows)
     ctx.report("seed", seed)
     ctx.report("note", NOTE)
@@ -232,7 +245,7 @@ def apply_splits(splits: dict[str, pl.DataFrame], config: Config, ctx: StepConte
 
     hasher, weighting = make_hasher(word, char), make_weighting()
     x_train = weighting.fit_transform(hasher.transform(texts(sample, ctx.text)))
-    model = fit_quietly(make_classifier(config.alpha, config.class_weight, seed), x_train, sample.get_column(label).to_list())
+    model = fit_quietly(make_classifier(config.alpha, config.class_weight, seed, sample.height), x_train, sample.get_column(label).to_list())
 
     metrics, confusion, parts, unscored = {}, {}, [], {}
     for name in SCORED_SPLITS:

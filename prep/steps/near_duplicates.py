@@ -142,7 +142,7 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
 
     texts = normalise_texts(table, columns, config.punctuation)
     settings = config.settings()
-    found = find(texts, settings)
+    found = find(texts, settings, remember_keys=True)  # the runner's audit reuses the band keys
     cluster = found.cluster
     in_cluster = cluster >= 0
 

@@ -45,7 +45,7 @@ PHASE = "splits"
 
 FOLDS = 5
 MIN_CONFIDENCE = 0.9      # set-aside policy only; common practice, no source
-MAX_ROWS = 50_000
+MAX_ROWS = 20_000
 REASON = "suspect_label"
 PROBABILITY_DECIMALS = 6  # rounding of the written probabilities, for byte-identical outputs
 THRESHOLD_RULE = "per-class mean self-confidence (confident learning, Northcutt et al., JAIR 2021)"
@@ -127,7 +127,7 @@ def out_of_sample_probabilities(texts: list[str], given: np.ndarray, k: int, *, 
         if np.unique(y_train).size < 2:
             probs[np.ix_(held_idx, y_train[:1])] = 1.0
             continue
-        model = baseline.fit_quietly(baseline.make_classifier(baseline.ALPHA, "balanced", seed), x_train, y_train)
+        model = baseline.fit_quietly(baseline.make_classifier(baseline.ALPHA, "balanced", seed, len(train_idx)), x_train, y_train)
         p = model.predict_proba(weighting.transform(counts[held_idx]))
         probs[np.ix_(held_idx, model.classes_.astype(np.int64))] = p
     return probs

@@ -2,7 +2,8 @@
 at 100,000 rows of the invented demo. Prints the figures; asserts only that the run balances.
 
 The demo is generated with sample_inputs/make_demo.py into a temporary folder; the pipeline keeps
-only the `missing` step before the split so that the figures are those of the two steps.
+only `normalise` (which merges label spellings) and `missing` before the split, so that the
+figures are those of the two steps.
 """
 
 from __future__ import annotations
@@ -34,7 +35,7 @@ def test_baseline_and_suspect_labels_at_100k(tmp_path):
     _make_demo().generate(rows=ROWS, out=tmp_path / "exports")
     text = (SAMPLE_INPUTS / "pipeline.yaml").read_text("utf-8")
     head, _, _ = text.partition("steps:")
-    steps = ("steps:\n  - missing: {columns: {label: set_aside, body: {fill_from: title}}}\n"
+    steps = ("steps:\n  - normalise: {}\n  - missing: {columns: {label: set_aside, body: {fill_from: title}}}\n"
              "  - baseline: {}\n  - suspect_labels: {}\n"
              "split: {train: 0.8, validation: 0.1, test: 0.1, seed: 7}\noutput: out/\n")
     (tmp_path / "pipeline.yaml").write_text(head + steps, encoding="utf-8")
