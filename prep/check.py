@@ -3,7 +3,22 @@
 from __future__ import annotations
 
 from prep.errors import PipelineError
-from prep.pipeline import Pipeline
+from prep.pipeline import Pipeline, Source
+
+
+def require_columns(pipeline: Pipeline, index: int, source: Source, names: list[str]) -> None:
+    """Raise the one error for a mapped column that the file does not have (used by run and check)."""
+    from prep.read.names import column_hint, describe_columns, shown_name
+
+    present = set(names)
+    for canon, column in source.columns.items():
+        if column not in present:
+            raise PipelineError(
+                f"column {shown_name(column)} is not in `{source.path_text}` (its columns: {describe_columns(names)}).",
+                file=str(pipeline.path),
+                key=f"sources[{index}].columns.{canon}",
+                hint=column_hint(names, column, file_format=source.format),
+            )
 
 
 def check_sources(pipeline: Pipeline) -> list[str]:
@@ -13,14 +28,6 @@ def check_sources(pipeline: Pipeline) -> list[str]:
     lines = []
     for i, source in enumerate(pipeline.sources):
         columns = read_columns(source)
-        present = set(columns)
-        for canon, column in source.columns.items():
-            if column not in present:
-                have = ", ".join(f"`{c}`" for c in columns)
-                raise PipelineError(
-                    f"column `{column}` is not in `{source.path_text}` (its columns: {have}).",
-                    file=str(pipeline.path),
-                    key=f"sources[{i}].columns.{canon}",
-                )
+        require_columns(pipeline, i, source, columns)
         lines.append(f"  source {source.name}: {source.path_text} ({source.format}), {len(source.columns)} of {len(columns)} columns mapped")
     return lines

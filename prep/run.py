@@ -17,7 +17,7 @@ import polars as pl
 
 from prep import __version__
 from prep.config import to_plain
-from prep.errors import DataError, PipelineError
+from prep.errors import DataError
 from prep.facts import RunFacts, SourceFacts, SplitFileFacts, StepFacts
 from prep.ledger import Ledger, Reason, check_accounting
 from prep.pipeline import PROVENANCE_COLUMNS, Pipeline, Source
@@ -61,19 +61,10 @@ class RunResult:
 
 def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger) -> tuple[pl.DataFrame, SourceFacts]:
     from prep.read import read_source
-    from prep.read.names import column_hint, describe_columns, shown_name
+    from prep.check import require_columns
 
     result = read_source(source, on_unreadable=pipeline.on_unreadable)
-    present = set(result.table.columns)
-    for canon, column in source.columns.items():
-        if column not in present:
-            names = [c for c in result.table.columns if c != "source_row"]
-            raise PipelineError(
-                f"column {shown_name(column)} is not in `{source.path_text}` (its columns: {describe_columns(names)}).",
-                file=str(pipeline.path),
-                key=f"sources[{index}].columns.{canon}",
-                hint=column_hint(names, column, file_format=source.format),
-            )
+    require_columns(pipeline, index, source, [c for c in result.table.columns if c != "source_row"])
     frame = result.table.select(
         pl.concat_str([pl.lit(source.name + ":"), pl.col("source_row").cast(pl.String)]).alias("row_id"),
         pl.lit(source.name, dtype=pl.String).alias("source"),
