@@ -7,6 +7,7 @@ Every row read ends in exactly one split or in the ledger (checked before anythi
 from __future__ import annotations
 
 import datetime as _dt
+import os
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -223,7 +224,11 @@ def run_pipeline(
         for name, frame in extra.items():
             target = out.parent / f"{out.name}.{name}.parquet"
             out.parent.mkdir(parents=True, exist_ok=True)
-            frame.write_parquet(target)
+            # Written beside the output folder (which a failed run leaves untouched), atomically:
+            # a crash leaves either the previous file or the new one, never half of one.
+            partial = target.with_name(f".{target.name}.prep-tmp-{os.getpid()}")
+            frame.write_parquet(partial)
+            os.replace(partial, target)
             written.append(str(target))
         if written:
             raise DataError(f"{exc.message} Failure cases: {', '.join(f'`{w}`' for w in written)}.") from exc
