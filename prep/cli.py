@@ -52,14 +52,14 @@ class _Printer:
         if event == "read":
             extra = f" ({data['unreadable']:,} unreadable)" if data["unreadable"] else ""
             line = f"  read   {data['source']:<22} {data['rows']:>10,} rows{extra}"
-            click.echo(f"{line:<60} {data['seconds']:7.2f} s", err=True)
+            click.echo(f"{line:<66} {data['seconds']:7.2f} s", err=True)
         elif event == "step":
             line = f"  step   {data['step']:<22} {data['rows_in']:>10,} -> {data['rows_out']:,}"
-            click.echo(f"{line:<60} {data['seconds']:7.2f} s", err=True)
+            click.echo(f"{line:<66} {data['seconds']:7.2f} s", err=True)
         elif event == "split":
             rows = data["rows"]
             line = "  split  " + ", ".join(f"{k} {v:,}" for k, v in rows.items())
-            click.echo(f"{line:<60} {data['seconds']:7.2f} s", err=True)
+            click.echo(f"{line:<66} {data['seconds']:7.2f} s", err=True)
         elif event == "written":
             click.echo(f"  wrote  {data['output']}", err=True)
 
