@@ -158,29 +158,7 @@ def _chunk_hashes_numpy(texts: list[str], kind: str, n: int) -> tuple[np.ndarray
         starts = _ranges(text_start, counts)
         ends = starts + np.repeat(np.minimum(lens, n), counts)
     else:
-        space = cps == 32
-        prev_space = np.ones(total, dtype=bool)
-        next_space = np.ones(total, dtype=bool)
-        prev_space[1:] = space[:-1]
-        next_space[:-1] = space[1:]
-        is_first = np.zeros(total, dtype=bool)
-        is_last = np.zeros(total, dtype=bool)
-        nonempty = lens > 0
-        is_first[text_start[nonempty]] = True
-        is_last[(text_start + lens - 1)[nonempty]] = True
-        word_start = np.flatnonzero(~space & (prev_space | is_first))
-        word_end = np.flatnonzero(~space & (next_space | is_last)) + 1
-        # Words per text (texts are contiguous and words never cross a text boundary).
-        words = np.bincount(np.searchsorted(text_start[nonempty], word_start, side="right") - 1,
-                            minlength=int(nonempty.sum())) if word_start.size else np.zeros(int(nonempty.sum()), np.int64)
-        wcount = np.zeros(m, dtype=np.int64)
-        wcount[nonempty] = words
-        wfirst = np.cumsum(wcount) - wcount
-        counts = np.where(wcount >= n, wcount - n + 1, (wcount > 0).astype(np.int64))
-        k = _ranges(wfirst, counts)  # index of the shingle's first word
-        span = np.repeat(np.minimum(wcount, n), counts)
-        starts = word_start[k]
-        ends = word_end[k + span - 1]
+        counts, starts, ends = _word_spans(cps, lens, text_start, n)
     # Prefix sums G[i] = sum_{k<i} (c_k + 1) * BASE^-k (mod 2**64); the substring [a, b) hashes to
     # sum_{k=a}^{b-1} (c_k + 1) * BASE^(b-1-k) = BASE^(b-1) * (G[b] - G[a]).
     with np.errstate(over="ignore"):

@@ -37,22 +37,15 @@ from prep.config import ConfigValueError
 from prep.errors import DataError
 from prep.ledger import Reason
 from prep.neardup import EXHAUSTIVE_MAX_ROWS, Settings, find, normalise_texts, pair_similarity
+from prep.neardup.report import DUPLICATES_SCHEMA
 from prep.steps.base import StepContext
 from prep.steps.exact_duplicates import _check_columns, _times
 
 NAME = "near_duplicates"
 CLUSTER_COLUMN = "_cluster"
 
-# duplicates.parquet: one row per member of every cluster (exact and near).
-CLUSTER_SCHEMA: dict[str, pl.DataType] = {
-    "cluster_id": pl.Int64(),
-    "row_id": pl.String(),
-    "source": pl.String(),
-    "source_row": pl.Int64(),
-    "kept": pl.Boolean(),
-    "similarity_to_kept": pl.Float64(),
-    "label": pl.String(),
-}
+# This step's clusters as duplicates.parquet holds them, less the `kind` the runner adds.
+CLUSTER_SCHEMA: dict[str, pl.DataType] = {k: v for k, v in DUPLICATES_SCHEMA.items() if k != "kind"}
 
 
 @dataclass(frozen=True)
