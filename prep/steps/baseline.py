@@ -7,10 +7,10 @@ Method:
 
 - Text: the pipeline's text columns joined with a line break (a null counts as empty).
 - Features: TF-IDF over word n-grams and character n-grams (``char_wb``: n-grams inside word
-  boundaries), each hashed into ``2**HASH_BITS`` columns with scikit-learn's
-  ``HashingVectorizer`` (MurmurHash3 with a fixed seed, so the columns do not depend on the
-  data or on the order of rows), then ``TfidfTransformer`` (smoothed idf, sublinear tf, L2 rows)
-  fitted on the training rows only.
+  boundaries), each hashed into ``2**HASH_BITS`` columns by :func:`prep.features.hashed_counts`
+  (the n-grams of scikit-learn's ``word`` and ``char_wb`` analyzers, hashed by a compiled kernel
+  with a fixed hash, so the columns do not depend on the data or on the order of rows), then
+  ``TfidfTransformer`` (smoothed idf, sublinear tf, L2 rows) fitted on the training rows only.
 - Classifier: logistic regression fitted by stochastic gradient descent (scikit-learn's
   ``SGDClassifier(loss="log_loss")``, one-vs-rest) for a number of epochs fixed by the row
   count (:func:`epochs_for`), seeded; class
@@ -21,7 +21,8 @@ Method:
   drawn per class in proportion (each class keeps ``ceil(n_c * max / n)`` rows, so the sample
   may exceed the maximum by less than one row per class); the rows kept are those with the
   smallest BLAKE2b keys of seed and ``row_id`` (:func:`prep.split.stable_keys`), so the sample
-  does not depend on row order. Validation and test are scored whole.
+  does not depend on row order. Validation and test are scored whole, in blocks of
+  :data:`PREDICT_BLOCK` rows so that memory stays bounded.
 - Metrics on validation and test: accuracy, balanced accuracy, macro F1 and F1 per class (over
   the classes present in the split's true or predicted labels, as scikit-learn does by default),
   and the confusion matrix. Rows without a label are not scored. Rounded to
@@ -34,6 +35,7 @@ metrics, confusion, note`` (plus ``train_rows``, ``classifier``, ``unscored_rows
 
 from __future__ import annotations
 
+import os
 import warnings
 from dataclasses import dataclass
 from typing import Any, Literal
@@ -48,10 +50,12 @@ from prep.steps.base import StepContext
 NAME = "baseline"
 PHASE = "splits"
 
-# Defaults. Bounded run time: at 20,000 rows, hashing the n-grams took about 15 s and 5 epochs of
-# SGD about 13 s on one busy core here (measured with char n-grams 3-4; 4-4 took 9.5 s and 8.4 s,
-# word n-grams alone 3.4 s and 5.9 s); tests/bench/test_after_split_bench.py measures 100,000 rows. The n-gram ranges are common practice for short texts, no source.
+# Defaults. Bounded run time: at 20,000 rows, 5 epochs of SGD took about 13 s on one busy core here
+# (hashing the n-grams with scikit-learn's analyzers took another 15 s; prep.features does it in
+# about one); tests/bench/test_after_split_bench.py measures 100,000 rows. The n-gram ranges are
+# common practice for short texts, no source.
 MAX_TRAIN_ROWS = 20_000
+PREDICT_BLOCK = 50_000    # validation/test rows featurised at once
 WORD_NGRAMS = (1, 2)
 CHAR_NGRAMS = (3, 4)
 HASH_BITS = 18            # 2**18 hashed columns per analyzer; collisions are rare at this size
@@ -120,17 +124,12 @@ def char_range(config: Config) -> tuple[int, int] | None:
     return tuple(config.char_ngrams) if config.char_ngrams else CHAR_NGRAMS
 
 
-def make_hasher(word: tuple[int, int], char: tuple[int, int] | None):
-    """Hashed word (+ character) n-gram counts. Stateless: the same text always gives the same row,
-    so the counts can be computed once and reused across cross-validation folds."""
-    from sklearn.feature_extraction.text import HashingVectorizer
-    from sklearn.pipeline import make_union
+def count_features(texts_: list[str], word: tuple[int, int], char: tuple[int, int] | None):
+    """Hashed word (+ character) n-gram counts, a CSR matrix (lower-cased here). Stateless: the same
+    text always gives the same row, so the counts can be computed once and reused across folds."""
+    from prep.features import hashed_counts, texts_lowercase
 
-    hashing = dict(n_features=2**HASH_BITS, alternate_sign=False, norm=None, lowercase=True, dtype=np.float64)
-    parts = [HashingVectorizer(analyzer="word", ngram_range=word, token_pattern=r"(?u)\b\w+\b", **hashing)]
-    if char is not None:
-        parts.append(HashingVectorizer(analyzer="char_wb", ngram_range=char, **hashing))
-    return make_union(*parts)
+    return hashed_counts(texts_lowercase(texts_), word=word, char=char, bits=HASH_BITS)
 
 
 def make_weighting():
@@ -149,8 +148,10 @@ def make_classifier(alpha: float, class_weight: str, seed: int, rows: int):
     """Logistic regression by SGD: fixed epochs, seeded shuffling, so the same data gives the same model."""
     from sklearn.linear_model import SGDClassifier
 
+    # n_jobs: the one-vs-rest problems are fitted on threads (scikit-learn's SGD releases the GIL);
+    # each problem's seed is drawn before they start, so the model does not depend on the threads.
     return SGDClassifier(
-        loss="log_loss", alpha=alpha, max_iter=epochs_for(rows), tol=None, random_state=seed,
+        loss="log_loss", alpha=alpha, max_iter=epochs_for(rows), tol=None, random_state=seed, n_jobs=os.cpu_count(),
         class_weight=None if class_weight == "none" else "balanced",
     )
 
@@ -243,8 +244,8 @@ def apply_splits(splits: dict[str, pl.DataFrame], config: Config, ctx: StepConte
         ctx.add_output("baseline_predictions", _predictions_frame([]))
         return splits
 
-    hasher, weighting = make_hasher(word, char), make_weighting()
-    x_train = weighting.fit_transform(hasher.transform(texts(sample, ctx.text)))
+    weighting = make_weighting()
+    x_train = weighting.fit_transform(count_features(texts(sample, ctx.text), word, char))
     model = fit_quietly(make_classifier(config.alpha, config.class_weight, seed, sample.height), x_train, sample.get_column(label).to_list())
 
     metrics, confusion, parts, unscored = {}, {}, [], {}
@@ -255,7 +256,10 @@ def apply_splits(splits: dict[str, pl.DataFrame], config: Config, ctx: StepConte
         if labelled.height == 0:
             metrics[name], confusion[name] = None, None
             continue
-        predicted = model.predict(weighting.transform(hasher.transform(texts(labelled, ctx.text)))).tolist()
+        predicted = []
+        for block in labelled.iter_slices(PREDICT_BLOCK):
+            x = weighting.transform(count_features(texts(block, ctx.text), word, char))
+            predicted += model.predict(x).tolist()
         y_true = labelled.get_column(label).to_list()
         metrics[name], confusion[name] = scores(y_true, predicted)
         parts.append(
@@ -278,6 +282,6 @@ def _predictions_frame(parts: list[pl.DataFrame]) -> pl.DataFrame:
     return pl.concat(parts, how="vertical").cast(schema)
 
 
-__all__ = ["NAME", "PHASE", "Config", "apply_splits", "texts", "make_hasher", "make_weighting", "make_classifier",
+__all__ = ["NAME", "PHASE", "Config", "apply_splits", "texts", "count_features", "make_weighting", "make_classifier",
            "sample_per_class",
            "scores"]

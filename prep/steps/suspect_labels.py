@@ -119,7 +119,7 @@ def out_of_sample_probabilities(texts: list[str], given: np.ndarray, k: int, *, 
         warnings.simplefilter("ignore", UserWarning)
         splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
         pieces = list(splitter.split(np.zeros(n), given))
-    counts = baseline.make_hasher(baseline.WORD_NGRAMS, baseline.CHAR_NGRAMS).transform(texts).tocsr()
+    counts = baseline.count_features(texts, baseline.WORD_NGRAMS, baseline.CHAR_NGRAMS)
     for train_idx, held_idx in pieces:
         weighting = baseline.make_weighting()
         x_train = weighting.fit_transform(counts[train_idx])

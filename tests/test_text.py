@@ -1,0 +1,40 @@
+"""The shared text helpers equal the plain polars expressions they stand in for."""
+
+from __future__ import annotations
+
+import random
+
+import polars as pl
+
+from prep.text import OTHER_WHITE_SPACE, collapse_whitespace, rewrite_where
+
+
+def test_other_white_space_is_the_regex_class_s_minus_the_space():
+    # Reference: the regex engine's own \s (Unicode White_Space, PropList.txt), over every code
+    # point except the surrogates, which a str cannot hold.
+    chars = pl.Series([chr(c) for c in range(0x110000) if not 0xD800 <= c <= 0xDFFF])
+    regex_s = chars.str.contains(r"^\s$")
+    ours = chars.str.contains(f"^{OTHER_WHITE_SPACE}$") | (chars == " ")
+    assert regex_s.sum() == 25  # White_Space has 25 code points (PropList.txt; from memory)
+    assert (regex_s == ours).all()
+
+
+def _plain(series: pl.Series) -> pl.Series:
+    return series.str.replace_all(r"\s+", " ").str.strip_chars(" ")
+
+
+def test_collapse_whitespace_equals_the_plain_expression():
+    rng = random.Random(5)
+    alphabet = ["a", "é", " ", "  ", "\t", "\n", "\r\n", "\u00a0", "\u2003", "\u3000", "\u200b", "x", "🚲"]
+    values = ["".join(rng.choice(alphabet) for _ in range(rng.randrange(0, 12))) for _ in range(3000)]
+    values += [None, "", " ", "plain text", " lead", "trail ", "two  spaces"]
+    series = pl.Series("t", values, dtype=pl.String)
+    got = collapse_whitespace(series)
+    assert got.name == "t"
+    assert got.to_list() == _plain(series).to_list()
+
+
+def test_rewrite_where_touches_only_matching_rows():
+    series = pl.Series("t", ["abc", None, "xyz", "aXc"])
+    got = rewrite_where(series, "X", lambda s: s.str.to_lowercase())
+    assert got.to_list() == ["abc", None, "xyz", "axc"]
