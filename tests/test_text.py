@@ -38,3 +38,16 @@ def test_rewrite_where_touches_only_matching_rows():
     series = pl.Series("t", ["abc", None, "xyz", "aXc"])
     got = rewrite_where(series, "X", lambda s: s.str.to_lowercase())
     assert got.to_list() == ["abc", None, "xyz", "axc"]
+
+
+def test_normalize_unicode_equals_polars_own_normalisation():
+    # Reference: polars' str.normalize (the Rust unicode-normalization crate), an implementation of
+    # UAX #15 independent of Python's unicodedata, which prep.text uses.
+    from prep.text import normalize_unicode
+
+    rng = random.Random(3)
+    alphabet = ["a", "e\u0301", "\u00e9", "\ufb01", "\u2460", "\uff21", "\u3000", "x", "\u1e9b\u0323", "한", "\u1100\u1161"]
+    values = ["".join(rng.choice(alphabet) for _ in range(rng.randrange(0, 8))) for _ in range(2000)] + [None, "", "ascii"]
+    series = pl.Series("t", values, dtype=pl.String)
+    for form in ("NFC", "NFKC"):
+        assert normalize_unicode(series, form).to_list() == series.str.normalize(form).to_list()
