@@ -236,23 +236,31 @@ def exact_text_leakage(splits: Mapping[str, pl.DataFrame], text: Sequence[str]) 
     ``pairs`` follows :data:`SPLIT_PAIRS`; a split missing from ``splits`` counts as empty.
     Rows whose text columns are all empty are not compared.
     """
-    keys = {name: _keys(splits.get(name, pl.DataFrame()), text) for name in ("train", "validation", "test")}
-    distinct = {name: k.unique() for name, k in keys.items()}
+    names = ("train", "validation", "test")
+    keys = [_keys(splits.get(name, pl.DataFrame()), text).with_columns(pl.lit(name).alias("split")) for name in names]
+    everything = pl.concat(keys)
+    # Keys found in one split only are most of the data: find the candidates through a 64-bit hash
+    # of the key (polars' own, used here only within this call, never stored), then count the
+    # candidates' exact keys. A hash collision can only add candidates, never lose a key.
+    hashed = everything.select(pl.col("key").hash().alias("h"), "split")
+    spread = hashed.group_by("h").agg(pl.col("split").n_unique().alias("n")).filter(pl.col("n") > 1)
+    candidates = everything.filter(hashed.get_column("h").is_in(spread.get_column("h").implode()))
+    # Rows per split for every candidate key (one grouping, not a join per pair of splits).
+    per_key = candidates.group_by("key").agg((pl.col("split") == name).sum().alias(name) for name in names)
     pairs = []
     for a, b in SPLIT_PAIRS:
-        shared = distinct[a].join(distinct[b], on="key", how="semi")
+        shared = per_key.filter((pl.col(a) > 0) & (pl.col(b) > 0))
         pairs.append(
             {
                 "splits": [a, b],
-                "rows_a": keys[a].join(shared, on="key", how="semi").height,
-                "rows_b": keys[b].join(shared, on="key", how="semi").height,
+                "rows_a": int(shared.get_column(a).sum()),
+                "rows_b": int(shared.get_column(b).sum()),
                 "texts": shared.height,
             }
         )
     # A key is leaked when it occurs in at least two splits.
-    occurrences = pl.concat(list(distinct.values())).group_by("key").len()
-    leaked = occurrences.filter(pl.col("len") > 1).select("key")
-    rows = sum(k.join(leaked, on="key", how="semi").height for k in keys.values())
+    leaked = per_key.filter(pl.sum_horizontal([(pl.col(n) > 0).cast(pl.Int32) for n in names]) > 1)
+    rows = int(leaked.select(pl.sum_horizontal(names).sum()).item()) if leaked.height else 0
     return {"total": rows, "texts": leaked.height, "pairs": pairs}
 
 
@@ -400,10 +408,14 @@ def missing_by_source(table: pl.DataFrame, columns: Sequence[str], tokens: Seque
     if table.height == 0 or "source" not in table.columns:
         return []
     lowered = [t.lower() for t in tokens]
+    # Lower-casing never shortens a string, so a cell longer than every token cannot equal one:
+    # only a prefix one character longer than the longest token is lower-cased (much cheaper on
+    # long texts, same answer).
+    longest = max((len(t) for t in [*tokens, *lowered]), default=0)
     exprs = []
     for c in columns:
         trimmed = pl.col(c).cast(pl.String).str.strip_chars(blank)
-        missing = pl.col(c).is_null() | (trimmed == "") | trimmed.str.to_lowercase().is_in(lowered)
+        missing = pl.col(c).is_null() | (trimmed == "") | trimmed.str.slice(0, longest + 1).str.to_lowercase().is_in(lowered)
         exprs.append(missing.sum().alias(c))
     grouped = table.group_by("source", maintain_order=True).agg(pl.len().alias("_rows"), *exprs)
     out = []
