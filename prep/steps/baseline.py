@@ -62,9 +62,11 @@ HASH_BITS = 18            # 2**18 hashed columns per analyzer; collisions are ra
 ALPHA = 1e-5              # L2 penalty of the SGD classifier (common practice for TF-IDF text, no source)
 # Passes over the data (no early stop): a bound on time, and deterministic. Small data needs more
 # passes to converge, large data fewer: epochs = UPDATES / rows, kept within [MIN_EPOCHS, MAX_EPOCHS]
-# (5 at 20,000 rows, 20 below 5,000 rows). Own choice, checked on the demo and the tests' data.
-UPDATES = 100_000
-MIN_EPOCHS = 5
+# (20 below 2,500 rows, 4 at 16,000, 3 at 20,000). Own choice: on 16,000 rows of the 250k demo,
+# 3 passes gave the same validation macro F1 as 7 (0.9979; log loss 0.0201 against 0.0194) in half
+# the time; below 2,500 rows nothing changed.
+UPDATES = 50_000
+MIN_EPOCHS = 3
 MAX_EPOCHS = 20
 METRIC_DECIMALS = 4
 SPLITS = ("train", "validation", "test")
