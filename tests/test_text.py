@@ -51,3 +51,14 @@ def test_normalize_unicode_equals_polars_own_normalisation():
     series = pl.Series("t", values, dtype=pl.String)
     for form in ("NFC", "NFKC"):
         assert normalize_unicode(series, form).to_list() == series.str.normalize(form).to_list()
+
+
+def test_by_slices_equals_one_piece(monkeypatch):
+    import prep.text as text
+
+    monkeypatch.setattr(text, "PARALLEL_FROM_ROWS", 10)
+    monkeypatch.setattr(text, "usable_cores", lambda: 3)
+    series = pl.Series("t", [f"  row {i}\t" if i % 7 else None for i in range(1001)])
+    got = text.by_slices(series, collapse_whitespace)
+    assert got.name == "t"
+    assert got.to_list() == collapse_whitespace(series).to_list()

@@ -45,6 +45,7 @@ than one spelling, sorted by class, with the count of each spelling).
 
 from __future__ import annotations
 
+import functools
 import html
 import re
 from dataclasses import dataclass
@@ -54,7 +55,7 @@ import polars as pl
 
 from prep.errors import DataError
 from prep.steps.base import StepContext
-from prep.text import collapse_whitespace, normalize_unicode, rewrite_where
+from prep.text import by_slices, collapse_whitespace, normalize_unicode, rewrite_where
 
 NAME = "normalise"
 
@@ -167,6 +168,13 @@ def clean_chars(series: pl.Series, *, form: str = "NFKC") -> pl.Series:
     return collapse_whitespace(out)
 
 
+def _clean_text(series: pl.Series, *, config: Config) -> pl.Series:
+    """Steps 1-4 of the module docstring for one text column (or a slice of one)."""
+    if config.html:
+        series = _strip_html(series)
+    return clean_chars(series, form=config.unicode_form)
+
+
 def _check_columns(table: pl.DataFrame, columns: list[str], what: str) -> None:
     missing = [c for c in columns if c not in table.columns]
     if missing:
@@ -213,11 +221,7 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
     new_columns: list[pl.Series] = []
     changed: dict[str, int] = {}
     for col in columns:
-        series = table.get_column(col)
-        if config.html:
-            series = _strip_html(series)
-        series = clean_chars(series, form=config.unicode_form)
-        new_columns.append(series)
+        new_columns.append(by_slices(table.get_column(col), functools.partial(_clean_text, config=config)))
 
     merges: list[dict] = []
     if config.labels:
