@@ -74,3 +74,18 @@ def small_pipeline(tmp_path: Path) -> Path:
 @pytest.fixture
 def cli_runner() -> CliRunner:
     return CliRunner()
+
+
+@pytest.fixture(scope="session")
+def demo_output(tmp_path_factory) -> Path:
+    """One run of the shipped demo pipeline, shared (read-only) by every test that needs real outputs.
+
+    Tests that change an output folder copy it first.
+    """
+    from prep.pipeline import load_pipeline
+    from prep.run import run_pipeline
+
+    pipeline = Path(__file__).resolve().parents[1] / "sample_inputs" / "pipeline.yaml"
+    out = tmp_path_factory.mktemp("demo") / "out"
+    run_pipeline(load_pipeline(pipeline), out=out)
+    return out

@@ -19,13 +19,11 @@ BYTE_IDENTICAL = ("train.parquet", "validation.parquet", "test.parquet", "set_as
 
 
 @pytest.fixture(scope="module")
-def demo_runs(tmp_path_factory) -> tuple[Path, Path]:
-    pipeline = load_pipeline(DEMO_PIPELINE)
-    first = tmp_path_factory.mktemp("first") / "out"
+def demo_runs(demo_output, tmp_path_factory) -> tuple[Path, Path]:
+    """Two runs of the demo: the shared session run (tests/conftest.py) and one more."""
     second = tmp_path_factory.mktemp("second") / "out"
-    run_pipeline(pipeline, out=first)
     run_pipeline(load_pipeline(DEMO_PIPELINE), out=second)
-    return first, second
+    return demo_output, second
 
 
 def test_every_row_accounted_for_exactly_once(demo_runs):

@@ -14,16 +14,4 @@ from prep.facts import RunFacts
 def make_facts() -> Callable[..., RunFacts]:
     return card_facts.make_facts
 
-
-@pytest.fixture(scope="session")
-def demo_output(tmp_path_factory):
-    """One run of the shipped demo pipeline, shared by the card tests that need real outputs."""
-    from pathlib import Path
-
-    from prep.pipeline import load_pipeline
-    from prep.run import run_pipeline
-
-    pipeline = Path(__file__).resolve().parents[2] / "sample_inputs" / "pipeline.yaml"
-    out = tmp_path_factory.mktemp("card-demo") / "out"
-    run_pipeline(load_pipeline(pipeline), out=out)
-    return out
+# `demo_output` (one run of the shipped demo, shared by every test module) lives in tests/conftest.py.
