@@ -17,7 +17,8 @@ number of threads.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange, uint64
+from numba import njit, prange, types, uint64
+from numba.extending import intrinsic
 
 _M1 = uint64(0xBF58476D1CE4E5B9)
 _M2 = uint64(0x94D049BB133111EB)
@@ -210,3 +211,178 @@ def jaccard(values, offsets, i, j, threshold):
         union = na + nb - inter
         out[p] = inter / union if union > 0 else 0.0
     return out
+
+
+# Sketch of a shingle set for the exact upper bound of :func:`filtered_pairs`. Fingerprints fall
+# into SKETCH_BUCKETS buckets by their low bits; level L (1..SKETCH_LEVELS) of the sketch is the
+# bitmap of buckets holding at least L of the set's distinct fingerprints, and ``excess`` counts the
+# fingerprints above the last level. Then sum over buckets of min(count in A, count in B), an upper
+# bound of |A & B|, is at most sum over levels of popcount(A_L & B_L) + min(excess A, excess B).
+SKETCH_BUCKETS = 256
+SKETCH_LEVELS = 4
+SKETCH_WORDS = SKETCH_LEVELS * SKETCH_BUCKETS // 64
+
+
+@intrinsic
+def _popcount(typingctx, x):
+    """Number of set bits of a uint64 (LLVM's ctpop: one instruction where the CPU has it)."""
+    sig = types.uint64(types.uint64)
+
+    def codegen(context, builder, signature, args):
+        return builder.ctpop(args[0])
+
+    return sig, codegen
+
+
+@njit(cache=True, nogil=True)
+def _sketch_range(hashes, offsets, first, last, sizes, sketch, excess):
+    """:func:`set_sketches` for texts first..last-1 (own scratch tables: a called function, so that
+    the parallel loop cannot hoist and share them)."""
+    table = np.empty(64, dtype=np.uint64)
+    stamp = np.zeros(64, dtype=np.int64)
+    counts = np.zeros(SKETCH_BUCKETS, dtype=np.int64)
+    for t in range(first, last):
+        lo, hi = offsets[t], offsets[t + 1]
+        cap = 64
+        while cap < 2 * (hi - lo):
+            cap *= 2
+        if table.size < cap:
+            table = np.empty(cap, dtype=np.uint64)
+            stamp = np.zeros(cap, dtype=np.int64)
+        mask = uint64(cap - 1)
+        mark = t + 1  # stamps of earlier texts are smaller: no clearing needed
+        count = 0
+        counts[:] = 0
+        for s in range(lo, hi):
+            x = hashes[s]
+            slot = np.int64((x >> uint64(16)) & mask)
+            while stamp[slot] == mark and table[slot] != x:
+                slot = np.int64((uint64(slot) + uint64(1)) & mask)
+            if stamp[slot] == mark:
+                continue  # a repeat
+            stamp[slot] = mark
+            table[slot] = x
+            count += 1
+            counts[np.int64(x & uint64(SKETCH_BUCKETS - 1))] += 1
+        sizes[t] = count
+        over = 0
+        for w in range(SKETCH_BUCKETS):
+            c = counts[w]
+            for level in range(min(c, SKETCH_LEVELS)):
+                q = level * (SKETCH_BUCKETS // 64) + w // 64
+                sketch[t, q] |= uint64(1) << uint64(w % 64)
+            if c > SKETCH_LEVELS:
+                over += c - SKETCH_LEVELS
+        excess[t] = over
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def set_sketches(hashes, offsets):
+    """(sizes, sketch, excess) of each text's set of distinct fingerprints: the set size (int64),
+    the level bitmaps (uint64, texts x SKETCH_WORDS) and the count above the last level (int64);
+    see SKETCH_BUCKETS. Distinct values are found with an open-addressing table per text (slot from
+    bits 16 and up of the fingerprint, linear probing, a per-text stamp instead of clearing)."""
+    m = offsets.size - 1
+    sizes = np.zeros(m, dtype=np.int64)
+    sketch = np.zeros((m, SKETCH_WORDS), dtype=np.uint64)
+    excess = np.zeros(m, dtype=np.int64)
+    items = (m + _TEXTS_PER_ITEM - 1) // _TEXTS_PER_ITEM
+    for it in prange(items):
+        _sketch_range(hashes, offsets, it * _TEXTS_PER_ITEM, min(m, (it + 1) * _TEXTS_PER_ITEM), sizes, sketch, excess)
+    return sizes, sketch, excess
+
+
+@njit(cache=True, nogil=True)
+def _need_by_sum(total, threshold):
+    """For each s in 0..total: the smallest intersection x <= s // 2 with x / (s - x) >= threshold
+    (the division of the result), or s // 2 + 1 when none. For a pair of set sizes na, nb this is
+    :func:`_need` (na, nb) whenever that is <= min(na, nb) (the condition is monotone in x and
+    min(na, nb) <= (na + nb) // 2), and above min(na, nb) exactly when _need is."""
+    out = np.ones(total + 1, dtype=np.int64)  # s < 2: no pair of non-empty sets
+    for s in range(2, total + 1):
+        out[s] = _need(s // 2, s - s // 2, threshold)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, sizes, sketch, excess, threshold, lo, hi):
+    """The LSH candidate pairs of buckets lo..hi-1 that may reach ``threshold``: (i, j, candidates).
+
+    Bucket q holds ``members[bucket_start[q]:bucket_start[q] + bucket_size[q]]`` (row indices) of band
+    ``bucket_band[q]``; each pair of a bucket is a candidate. A pair is counted (``candidates``) and
+    examined only in the first band where its rows share a key (``keys``: texts x bands), so each
+    candidate is handled once. It is returned (i < j, in no particular order) unless an exact upper
+    bound on the intersection of its shingle sets is below the smallest intersection that reaches
+    the threshold (:func:`_need`): min(|A|, |B|) (set sizes), and the sketch bound (see
+    SKETCH_BUCKETS; every common element lies in the same bucket of both sets). A pair returned
+    still needs its exact Jaccard; a pair dropped cannot reach the threshold.
+
+    Each bucket's keys, sizes and sketches are first copied into contiguous scratch arrays, so the
+    (size x size) pair loop reads from cache, not from rows scattered over the whole input."""
+    cap = 1024
+    out_i = np.empty(cap, dtype=np.int64)
+    out_j = np.empty(cap, dtype=np.int64)
+    n_out = 0
+    n_cand = 0
+    n_bands = keys.shape[1]
+    max_size = 0
+    for t in range(sizes.size):
+        max_size = max(max_size, sizes[t])
+    need_by_sum = _need_by_sum(2 * max_size, threshold)
+    room = 0
+    l_keys = np.empty((room, n_bands), dtype=np.uint64)
+    l_sketch = np.empty((room, SKETCH_WORDS), dtype=np.uint64)
+    l_size = np.empty(room, dtype=np.int64)
+    l_excess = np.empty(room, dtype=np.int64)
+    for q in range(lo, hi):
+        band = bucket_band[q]
+        s0 = bucket_start[q]
+        c = bucket_size[q]
+        if c > room:
+            room = max(c, 2 * room, 64)
+            l_keys = np.empty((room, n_bands), dtype=np.uint64)
+            l_sketch = np.empty((room, SKETCH_WORDS), dtype=np.uint64)
+            l_size = np.empty(room, dtype=np.int64)
+            l_excess = np.empty(room, dtype=np.int64)
+        for x in range(c):
+            a = members[s0 + x]
+            for e in range(band):
+                l_keys[x, e] = keys[a, e]
+            for w in range(SKETCH_WORDS):
+                l_sketch[x, w] = sketch[a, w]
+            l_size[x] = sizes[a]
+            l_excess[x] = excess[a]
+        for x in range(c):
+            na = l_size[x]
+            ea = l_excess[x]
+            for y in range(x + 1, c):
+                hit = False
+                for e in range(band):
+                    if l_keys[x, e] == l_keys[y, e]:
+                        hit = True
+                        break
+                if hit:
+                    continue
+                n_cand += 1
+                nb = l_size[y]
+                need = need_by_sum[na + nb]
+                if need > min(na, nb):
+                    continue
+                bound = min(ea, l_excess[y])
+                for w in range(SKETCH_WORDS):
+                    bound += np.int64(_popcount(l_sketch[x, w] & l_sketch[y, w]))
+                if bound < need:
+                    continue
+                if n_out == cap:
+                    cap *= 2
+                    grown_i = np.empty(cap, dtype=np.int64)
+                    grown_j = np.empty(cap, dtype=np.int64)
+                    grown_i[:n_out] = out_i[:n_out]
+                    grown_j[:n_out] = out_j[:n_out]
+                    out_i, out_j = grown_i, grown_j
+                a = members[s0 + x]
+                b = members[s0 + y]
+                out_i[n_out] = min(a, b)
+                out_j[n_out] = max(a, b)
+                n_out += 1
+    return out_i[:n_out].copy(), out_j[:n_out].copy(), n_cand

@@ -15,10 +15,10 @@ import numpy as np
 from prep.neardup.shingles import splitmix64
 
 DEFAULT_TARGET_RECALL = 0.99
-# A bucket with more members than this is linked as a star (each member paired with the bucket's
-# first member, by row order) instead of all its pairs, so that a bucket of m texts costs m, not
-# m**2, pairs. Connected components are unchanged whenever the first member's pairs verify;
-# the step reports how many buckets were this large. Common practice, no source.
+# Buckets with more members than this are counted and reported (fact ``large_buckets``): their
+# pairs grow with the square of their size. All their pairs are still candidates (an earlier
+# version linked them as a star, which could miss pairs); the search examines them with exact
+# bounds before verifying (:func:`prep.neardup.kernels.filtered_pairs`). Common practice, no source.
 MAX_BUCKET_ALL_PAIRS = 256
 
 
@@ -82,10 +82,9 @@ def band_keys_numpy(sigs: np.ndarray, bands: int, rows: int) -> np.ndarray:
 
 
 def _bucket_pairs(ids: np.ndarray, keys: np.ndarray) -> tuple[np.ndarray, int]:
-    """Candidate pairs (as i << 32 | j with i < j) from one band, and the count of large buckets.
-
-    The order inside a bucket does not matter: a small bucket gives all its pairs, a large one
-    links every member to its smallest row index, so an unstable (faster) sort gives the same set."""
+    """Candidate pairs (as i << 32 | j with i < j) from one band: every pair of rows sharing a key,
+    and the count of buckets above :data:`MAX_BUCKET_ALL_PAIRS` members. The numpy definition of
+    the candidates; the search enumerates them in a compiled kernel instead (same pairs)."""
     if keys.size < 2:
         return np.zeros(0, dtype=np.uint64), 0
     order = np.argsort(keys)
@@ -106,23 +105,14 @@ def _bucket_pairs(ids: np.ndarray, keys: np.ndarray) -> tuple[np.ndarray, int]:
     size_of = np.repeat(sizes, sizes)
     start_of = np.repeat(start_pos, sizes)
     pos = np.arange(k.size)
-    small = size_of <= MAX_BUCKET_ALL_PAIRS
-    # All pairs of small buckets: position p pairs with p+1 .. end-1 of its bucket.
-    partners = np.where(small, start_of + size_of - 1 - pos, 0)
+    # All pairs: position p pairs with p+1 .. end-1 of its bucket.
+    partners = start_of + size_of - 1 - pos
     left = np.repeat(pos, partners)
     first = np.cumsum(partners) - partners
     right = left + 1 + (np.arange(left.size) - np.repeat(first, partners))
     i, j = members[left].astype(np.uint64), members[right].astype(np.uint64)
     lo, hi = np.minimum(i, j), np.maximum(i, j)
-    pairs = (lo << np.uint64(32)) | hi
-    n_large = int(np.sum(sizes > MAX_BUCKET_ALL_PAIRS))
-    if n_large:
-        # Large buckets: each member with the bucket's smallest row index.
-        hub = np.repeat(np.minimum.reduceat(members, start_pos), sizes)
-        large = ~small & (members != hub)
-        star = (hub[large].astype(np.uint64) << np.uint64(32)) | members[large].astype(np.uint64)
-        pairs = np.concatenate([pairs, star])
-    return pairs, n_large
+    return (lo << np.uint64(32)) | hi, int(np.sum(sizes > MAX_BUCKET_ALL_PAIRS))
 
 
 def sorted_unique(values: np.ndarray) -> np.ndarray:

@@ -3,14 +3,19 @@
 1. Texts that are identical after normalisation are folded into one representative (the first
    one); its copies are linked to it with similarity 1.0. This is exact and keeps templated
    texts from filling LSH buckets.
-2. ``minhash_lsh``: representatives are shingled and signed in chunks (only the band keys are
-   kept, so memory stays linear and small), candidate pairs come from the LSH buckets, and each
-   candidate is verified by its exact similarity (Jaccard: a merge of sorted shingle sets that
-   stops once the pair can no longer reach the threshold). ``exhaustive``: every pair, exactly.
+2. ``minhash_lsh``: representatives are shingled and signed in chunks; of each text only its
+   band keys, its shingle-set size and a 128-byte sketch of the set are kept (memory linear and
+   small). Every LSH candidate pair (all pairs of every bucket, large buckets included) is
+   examined once, in the first band where it collides, against two exact upper bounds of its
+   Jaccard similarity (set sizes, and the sketch: see :func:`prep.neardup.kernels.filtered_pairs`);
+   a pair that cannot reach the threshold is dropped there, and the remaining ones are verified by
+   their exact similarity (Jaccard: a merge of sorted shingle sets that stops once the pair can no
+   longer reach the threshold). The bounds never drop a pair at or above the threshold, so the
+   verified pairs are those of verifying every candidate. ``exhaustive``: every pair, exactly.
 3. Clusters are the connected components of the verified pairs.
 
-The inner loops (fingerprints, MinHash, band keys, Jaccard) are compiled kernels
-(:mod:`prep.neardup.kernels`) that use both cores; the rest is numpy and polars.
+The inner loops (fingerprints, MinHash, band keys, sketches, candidate bounds, Jaccard) are
+compiled kernels (:mod:`prep.neardup.kernels`) that use both cores; the rest is numpy and polars.
 """
 
 from __future__ import annotations
@@ -29,11 +34,8 @@ from prep.neardup.shingles import DEFAULT_N, shingle
 Method = Literal["minhash_lsh", "exhaustive"]
 Similarity = Literal["jaccard", "edit"]
 
-# Texts are signed in chunks of this many, so that only their band keys outlive the chunk.
+# Texts are signed in chunks of this many, so that only their band keys and sketches outlive the chunk.
 SIGN_CHUNK_TEXTS = 65_536
-# Candidate pairs of the bands gathered so far are made unique once they exceed this many (8 bytes
-# each), so that memory follows the distinct pairs, not 'bands' times them.
-DEDUPE_EVERY_PAIRS = 1 << 24
 
 
 @dataclass(frozen=True)
@@ -83,19 +85,18 @@ def pair_similarity(
 
 
 class _KeyMemo:
-    """The band keys of the last LSH search, by text: the runner's leakage audit searches the texts
-    that the step just searched (minus the rows it set aside), and band keys are a pure function of
-    the text and the settings, so the audit looks them up instead of signing every text again.
-    A lookup gives exactly what signing would give; only one search is kept (its texts and keys)."""
+    """The band keys and set sketches of the last LSH search, by text: the runner's leakage audit
+    searches the texts that the step just searched (minus the rows it set aside), and both are a
+    pure function of the text and the settings, so the audit looks them up instead of signing every
+    text again. A lookup gives exactly what signing would give; only one search is kept."""
 
     def __init__(self) -> None:
         self.params: tuple | None = None
         self.texts: pl.Series | None = None
-        self.keys: np.ndarray | None = None
-        self.active: np.ndarray | None = None
+        self.signed: _Signed | None = None
 
-    def store(self, params: tuple, texts: pl.Series, keys: np.ndarray, active: np.ndarray) -> None:
-        self.params, self.texts, self.keys, self.active = params, texts, keys, active
+    def store(self, params: tuple, texts: pl.Series, signed: _Signed) -> None:
+        self.params, self.texts, self.signed = params, texts, signed
 
     def clear(self) -> None:
         self.__init__()
@@ -109,6 +110,33 @@ class _KeyMemo:
         return hit.get_column("k").fill_null(-1).cast(pl.Int64).to_numpy()
 
 
+@dataclass
+class _Signed:
+    """What the LSH search keeps of each text once it is signed: band keys (texts x bands), whether
+    it has shingles, and for the exact bounds of :func:`kernels.filtered_pairs` its set size, sketch
+    and sketch excess."""
+
+    keys: np.ndarray
+    active: np.ndarray
+    sizes: np.ndarray
+    sketch: np.ndarray
+    excess: np.ndarray
+
+    @classmethod
+    def empty(cls, m: int, bands: int) -> _Signed:
+        from prep.neardup.kernels import SKETCH_WORDS
+
+        return cls(
+            keys=np.empty((m, bands), dtype=np.uint64), active=np.empty(m, dtype=bool),
+            sizes=np.empty(m, dtype=np.int64), sketch=np.empty((m, SKETCH_WORDS), dtype=np.uint64),
+            excess=np.empty(m, dtype=np.int64),
+        )
+
+    def put(self, at: np.ndarray, other: _Signed, rows: np.ndarray | slice = slice(None)) -> None:
+        for name in ("keys", "active", "sizes", "sketch", "excess"):
+            getattr(self, name)[at] = getattr(other, name)[rows]
+
+
 _MEMO = _KeyMemo()
 
 
@@ -119,44 +147,103 @@ def forget_keys() -> None:
 
 def _band_keys(
     texts: pl.Series, settings: Settings, bands: int, rows: int, *, reuse: bool = False, remember: bool = False
-) -> tuple[np.ndarray, np.ndarray]:
-    """(band keys (texts x bands), has-shingles flag) computed chunk by chunk. ``reuse``: take the
-    keys of texts the last remembered search signed from it; ``remember``: keep these for reuse."""
+) -> _Signed:
+    """Band keys, shingle flags, set sizes and sketches of ``texts``, computed chunk by chunk (the
+    shingles of a chunk are dropped once it is signed). ``reuse``: take what the last remembered
+    search computed for the same texts; ``remember``: keep these for reuse."""
+    from prep.neardup import kernels
+
     m = texts.len()
     params = (settings.shingles, settings.shingle_n, settings.permutations, bands, rows)
-    keys = np.empty((m, bands), dtype=np.uint64)
-    active = np.empty(m, dtype=bool)
+    signed = _Signed.empty(m, bands)
     known = _MEMO.lookup(params, texts) if reuse else np.full(m, -1, dtype=np.int64)
     have = known >= 0
     if have.any():
-        keys[have] = _MEMO.keys[known[have]]
-        active[have] = _MEMO.active[known[have]]
+        signed.put(have, _MEMO.signed, known[have])
     todo = np.flatnonzero(~have)
     values = texts.gather(todo).to_list() if todo.size < m else texts.to_list()
     for lo in range(0, todo.size, SIGN_CHUNK_TEXTS):  # one iteration per chunk of texts
         chunk = shingle(values[lo:lo + SIGN_CHUNK_TEXTS], settings.shingles, settings.shingle_n)
         sigs = minhash.signatures(chunk, settings.permutations)
         at = todo[lo:lo + sigs.shape[0]]
-        keys[at] = lsh.band_keys(sigs, bands, rows)
-        active[at] = chunk.counts > 0
+        sizes, sketch, excess = kernels.set_sketches(chunk.hashes, chunk.offsets)
+        signed.put(at, _Signed(lsh.band_keys(sigs, bands, rows), chunk.counts > 0, sizes, sketch, excess))
     if remember:
-        _MEMO.store(params, texts, keys, active)
-    return keys, active
+        _MEMO.store(params, texts, signed)
+    return signed
 
 
-def _lsh_candidates(keys: np.ndarray, active: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
-    ids = np.flatnonzero(active)
-    parts, large, pending = [], 0, 0
-    for band in range(keys.shape[1]):  # one iteration per band
-        p, n_large = lsh._bucket_pairs(ids, keys[ids, band])
-        parts.append(p)
-        large += n_large
-        pending += p.size
-        if pending > DEDUPE_EVERY_PAIRS:  # bands repeat most pairs: drop repeats as they come
-            parts = [lsh.sorted_unique(np.concatenate(parts))]
-            pending = parts[0].size
-    pairs = lsh.sorted_unique(np.concatenate(parts)) if parts else np.zeros(0, dtype=np.uint64)
-    return (pairs >> np.uint64(32)).astype(np.int64), (pairs & np.uint64(0xFFFFFFFF)).astype(np.int64), large
+def _threads() -> int:
+    import numba
+
+    return max(1, int(numba.get_num_threads()))
+
+
+def _lsh_candidates(signed: _Signed, threshold: float) -> tuple[np.ndarray, np.ndarray, int, int]:
+    """(i, j, candidates, large buckets): the LSH candidate pairs (i < j, sorted) that pass the exact
+    bounds of :func:`kernels.filtered_pairs`, the number of distinct candidate pairs, and the number
+    of buckets with more than :data:`lsh.MAX_BUCKET_ALL_PAIRS` members (all their pairs are examined).
+
+    Buckets come from one sort of the keys per band; the pairs of all buckets are then examined by
+    the compiled kernel on every core, in work items of about equal pair counts (threads; the kernel
+    releases the GIL). The result does not depend on the number of threads or items."""
+    from prep.neardup import kernels
+
+    ids = np.flatnonzero(signed.active)
+    member_parts, start_parts, size_parts, band_parts = [], [], [], []
+    offset = 0
+    for band in range(signed.keys.shape[1]):  # one iteration per band
+        k = signed.keys[ids, band]
+        order = np.argsort(k)
+        k = k[order]
+        dup = k[1:] == k[:-1]
+        if not dup.any():
+            continue
+        in_bucket = np.zeros(k.size, dtype=bool)
+        in_bucket[1:] = dup
+        in_bucket[:-1] |= dup
+        k = k[in_bucket]
+        member_parts.append(ids[order[in_bucket]])
+        new = np.ones(k.size, dtype=bool)
+        new[1:] = k[1:] != k[:-1]
+        starts = np.flatnonzero(new)
+        start_parts.append(starts + offset)
+        size_parts.append(np.diff(np.append(starts, k.size)))
+        band_parts.append(np.full(starts.size, band, dtype=np.int64))
+        offset += k.size
+    if not member_parts:
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty, 0, 0
+    members = np.concatenate(member_parts)
+    starts = np.concatenate(start_parts)
+    sizes = np.concatenate(size_parts)
+    bands = np.concatenate(band_parts)
+    large = int(np.sum(sizes > lsh.MAX_BUCKET_ALL_PAIRS))
+    # Work items: ranges of buckets holding about equal numbers of pairs.
+    work = np.cumsum(sizes * (sizes - 1) // 2)
+    n_items = 4 * _threads()
+    cuts = np.searchsorted(work, np.linspace(0, work[-1], n_items + 1)[1:-1], side="right")
+    bounds = np.unique(np.concatenate([[0], cuts, [sizes.size]]))
+    keys = np.ascontiguousarray(signed.keys)
+
+    def run(item: int):
+        return kernels.filtered_pairs(
+            members, starts, sizes, bands, keys, signed.sizes, signed.sketch, signed.excess,
+            float(threshold), int(bounds[item]), int(bounds[item + 1]),
+        )
+
+    if bounds.size > 2 and _threads() > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=_threads()) as pool:
+            results = list(pool.map(run, range(bounds.size - 1)))
+    else:
+        results = [run(item) for item in range(bounds.size - 1)]
+    n_candidates = sum(r[2] for r in results)
+    i = np.concatenate([r[0] for r in results])
+    j = np.concatenate([r[1] for r in results])
+    packed = np.sort((i.astype(np.uint64) << np.uint64(32)) | j.astype(np.uint64))
+    return (packed >> np.uint64(32)).astype(np.int64), (packed & np.uint64(0xFFFFFFFF)).astype(np.int64), n_candidates, large
 
 
 def find(
@@ -202,10 +289,11 @@ def find(
         bands, rows, p_at = lsh.choose_bands(
             settings.threshold, settings.permutations, settings.target_recall, bands=settings.bands, rows=settings.rows
         )
-        keys, active = _band_keys(rep_texts, settings, bands, rows, reuse=reuse_keys, remember=remember_keys)
-        ci, cj, large = _lsh_candidates(keys, active)
-        del keys
-        n_candidates = int(ci.size)
+        signed = _band_keys(rep_texts, settings, bands, rows, reuse=reuse_keys, remember=remember_keys)
+        # Candidates whose exact bounds already rule them out are not verified (same result).
+        bound = settings.threshold if settings.similarity == "jaccard" else 0.0
+        ci, cj, n_candidates, large = _lsh_candidates(signed, bound)
+        del signed
         if pair_filter is not None:
             wanted = pair_filter(reps[ci], reps[cj])
             ci, cj = ci[wanted], cj[wanted]
@@ -213,6 +301,7 @@ def find(
         facts.update(
             permutations=settings.permutations, bands=bands, rows=rows,
             expected_recall_at_threshold=round(p_at, 6), candidates=n_candidates, large_buckets=large,
+            exactly_verified=int(ci.size),  # candidates left by the bounds (and the pair filter)
         )
     ok = sim >= settings.threshold
     i = reps[ci[ok]]

@@ -14,7 +14,9 @@ threshold (its usual use). Inputs come from the demo generator. Prints:
   texts and runs the search; the reference is not in it);
 - recall and precision against the exhaustive oracle on a 20k sample at thresholds 0.8 and 0.7;
 - the time exponent from 250k to 1M, with the growth of distinct texts and candidate pairs beside
-  it (the demo's templated texts give more near pairs per text as the input grows).
+  it, twice: on the demo texts as they are (their templated texts give more near pairs per text as
+  the input grows: candidate pairs grow about with the square of the input), and on inputs whose
+  near-duplicate rate per text is constant across sizes (see :func:`_constant_rate`).
 
 Sizes: PREP_BENCH_SIZES (default "100000,250000,1000000"). The reference runs on at most
 PREP_BENCH_REF_MAX texts (default 100000) and its time is scaled linearly beyond that; it is at
@@ -78,6 +80,25 @@ def _demo_texts(rows: int, folder: Path) -> pl.DataFrame:
     return texts
 
 
+def _constant_rate(series: pl.Series, rows: int, block: int) -> pl.Series:
+    """``rows`` texts whose near-duplicate rate per text does not grow with ``rows``: consecutive
+    blocks of ``block`` demo texts, block k with every character except the space moved up by
+    k x 0x40000 code points (a disjoint alphabet per block, so no shingle and no near pair crosses
+    blocks). The first block is the demo's first ``block`` texts unchanged, so at rows == block this
+    is the demo input itself; each further block is a fresh slice of the demo with the same
+    templates, i.e. the same pairs per text. Built with a Python loop over texts (benchmark input
+    only)."""
+    parts = []
+    for k, lo in enumerate(range(0, rows, block)):
+        texts = series.slice(lo, min(block, rows - lo)).fill_null("").to_list()
+        if k:
+            chars = set("".join(texts)) - {" "}
+            table = {ord(c): chr(ord(c) + k * 0x40000) for c in chars}
+            texts = [t.translate(table) for t in texts]
+        parts.append(pl.Series(texts, dtype=pl.String))
+    return pl.concat(parts)
+
+
 def _reference(texts: list[str], threshold: float, k: int, b: int, r: int) -> tuple[float, float, set[tuple[int, int]]]:
     """(seconds to sign and index, seconds to query and filter, pairs) with datasketch."""
     from datasketch import MinHash, MinHashLSH
@@ -135,7 +156,8 @@ def test_bench_throughput_and_memory(data_folder):
                   f"{n / ref_scaled:>8,.0f} texts/s ({sign_t + query_t:6.1f} s on {m:,}{', scaled' if m < n else ''}: "
                   f"sign+index {sign_t:.1f} s, query {query_t:.1f} s); ratio {ref_scaled / ours:6.1f}x "
                   f"(vs its signing alone {sign_t * n / m / ours:5.1f}x); distinct {found.facts['distinct_texts']:,}, "
-                  f"candidates {found.facts['candidates']:,}, verified {found.facts['verified_pairs']:,}")
+                  f"candidates {found.facts['candidates']:,}, exactly verified {found.facts['exactly_verified']:,}, "
+                  f"verified {found.facts['verified_pairs']:,}")
         # Distinct texts only, both tools: prep's identical-text folding earns nothing here.
         n = min(REF_MAX, series.len())
         distinct = series.head(max(SIZES)).unique(maintain_order=True).head(n)
@@ -145,21 +167,41 @@ def test_bench_throughput_and_memory(data_folder):
               f"{distinct.len() / (sign_t + query_t):>8,.0f} texts/s; ratio {(sign_t + query_t) / ours:6.1f}x "
               f"(vs its signing alone {sign_t / ours:5.1f}x)")
     if 250_000 in SIZES and 1_000_000 in SIZES:
-        for name in ("titles", "title+body"):
+        for name, series in (("titles", titles), ("title+body", both)):
             exp = math.log(times[(name, 1_000_000)] / times[(name, 250_000)]) / math.log(4)
             f0, f1 = facts[(name, 250_000)], facts[(name, 1_000_000)]
-            print(f"time exponent 250k -> 1M ({name}): {exp:.2f}; over the same step distinct texts grew "
-                  f"x{f1['distinct_texts'] / f0['distinct_texts']:.2f}, candidate pairs x{f1['candidates'] / max(1, f0['candidates']):.2f}")
+            print(f"time exponent 250k -> 1M ({name}, demo as is): {exp:.2f}; over the same step distinct texts grew "
+                  f"x{f1['distinct_texts'] / f0['distinct_texts']:.2f}, candidate pairs x{f1['candidates'] / max(1, f0['candidates']):.2f}, "
+                  f"exactly verified x{f1['exactly_verified'] / max(1, f0['exactly_verified']):.2f}")
+            # Constant near-duplicate rate per text: 4 blocks of 250k (the first is the 250k input).
+            blocks = _constant_rate(series, 1_000_000, 250_000)
+            ours, found = _timed_find(blocks, Settings(threshold=0.8))
+            g = found.facts
+            exp = math.log(ours / times[(name, 250_000)]) / math.log(4)
+            print(f"time exponent 250k -> 1M ({name}, constant near-duplicate rate: 4 disjoint 250k blocks): {exp:.2f} "
+                  f"({times[(name, 250_000)]:.1f} s -> {ours:.1f} s); distinct texts x{g['distinct_texts'] / f0['distinct_texts']:.2f}, "
+                  f"candidate pairs x{g['candidates'] / max(1, f0['candidates']):.2f}, verified pairs x{g['verified_pairs'] / max(1, f0['verified_pairs']):.2f}")
     # Peak memory of prep's search alone on the largest titles input, in a child process.
     (data_folder / "titles.parquet").unlink(missing_ok=True)
     titles.head(largest).to_frame("t").write_parquet(data_folder / "titles.parquet")
+    # The child reads its peak from /proc/self/status (VmHWM, in KiB): getrusage's ru_maxrss keeps
+    # the parent's peak across fork and exec on Linux, so in a child of this large process it
+    # would report the benchmark's own peak, not the search's.
     child = (
         "import json, resource, sys, polars as pl\n"
+        "from pathlib import Path\n"
         "from prep.neardup import Settings, find\n"
+        "def hwm():\n"
+        "    status = Path('/proc/self/status')\n"
+        "    if not status.exists():  # not Linux: ru_maxrss (may include the parent's peak)\n"
+        "        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "    for line in status.read_text().splitlines():\n"
+        "        if line.startswith('VmHWM:'):\n"
+        "            return int(line.split()[1])\n"
         "t = pl.read_parquet(sys.argv[1]).get_column('t')\n"
-        "before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "before = hwm()\n"
         "f = find(t, Settings())\n"
-        "print(json.dumps({'before': before, 'peak': resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, 'pairs': int(f.i.size)}))\n"
+        "print(json.dumps({'before': before, 'peak': hwm(), 'pairs': int(f.i.size)}))\n"
     )
     out = subprocess.run([sys.executable, "-c", child, str(data_folder / "titles.parquet")], check=True,
                          capture_output=True, text=True)

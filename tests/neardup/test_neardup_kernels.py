@@ -92,8 +92,8 @@ def test_jaccard_kernel_equals_python_sets():
 
 
 def test_bucket_pairs_equal_brute_force():
-    # Reference: every pair of rows sharing a key (small buckets), and for a bucket above
-    # MAX_BUCKET_ALL_PAIRS each member paired with the bucket's smallest row index.
+    # Reference: every pair of rows sharing a key, by enumeration (a bucket above
+    # MAX_BUCKET_ALL_PAIRS included: all its pairs too).
     rng = np.random.default_rng(9)
     ids = np.sort(rng.choice(10_000, size=2000, replace=False)).astype(np.int64)
     keys = rng.integers(0, 600, size=ids.size).astype(np.uint64)
@@ -102,10 +102,7 @@ def test_bucket_pairs_equal_brute_force():
     want = set()
     for key in np.unique(keys):
         members = sorted(ids[keys == key].tolist())
-        if len(members) > lsh.MAX_BUCKET_ALL_PAIRS:
-            want |= {(members[0], m) for m in members[1:]}
-        else:
-            want |= {(a, b) for x, a in enumerate(members) for b in members[x + 1:]}
+        want |= {(a, b) for x, a in enumerate(members) for b in members[x + 1:]}
     pairs = lsh.sorted_unique(got)
     assert pairs.size == got.size  # one band gives no pair twice
     assert set(zip((pairs >> np.uint64(32)).tolist(), (pairs & np.uint64(0xFFFFFFFF)).tolist())) == want
@@ -132,3 +129,131 @@ def test_audit_gives_the_same_counts_with_and_without_the_remembered_keys():
     # Keys remembered for other settings are not used.
     find(step_texts, Settings(permutations=64), remember_keys=True)
     assert leakage_audit(splits, ["title"], Settings()) == fresh
+
+
+def _random_sets(seed: int, m: int, subset: float = 0.8) -> tuple[Shingled, list[set[int]]]:
+    """m fingerprint sets: variants of a few base sets with some elements swapped for fresh ones (so
+    that pairs fall on both sides of every threshold), repeats inside a text, a few empty sets, and
+    variants of a large base set that go past the last sketch level in many buckets, and subsets
+    holding ceil(subset x size) of a base set (Jaccard just at or above ``subset``: the intersection
+    they need is their whole size)."""
+    rng = np.random.default_rng(seed)
+    bases = [rng.integers(0, 2**64, size=int(rng.integers(1, 120)), dtype=np.uint64) for _ in range(12)]
+    bases.append(rng.integers(0, 2**64, size=2500, dtype=np.uint64))
+    parts = []
+    for t in range(m):
+        if t % 50 == 7:
+            parts.append(np.zeros(0, dtype=np.uint64))
+            continue
+        base = bases[-1] if t % 40 == 3 else bases[int(rng.integers(0, len(bases) - 1))]
+        v = base.copy()
+        swap = rng.random(v.size) < (0.0 if t % 9 == 0 else rng.uniform(0.0, 0.4))  # some equal sets
+        v[swap] = rng.integers(0, 2**64, size=int(swap.sum()), dtype=np.uint64)
+        if t % 13 == 5:
+            v = base[: int(np.ceil(subset * base.size))]
+        parts.append(np.concatenate([v, v[: int(rng.integers(0, 3))]]))  # a few repeats
+    sh = Shingled(offsets=np.concatenate([[0], np.cumsum([p.size for p in parts])]).astype(np.int64),
+                  hashes=np.concatenate(parts).astype(np.uint64))
+    return sh, [set(p.tolist()) for p in parts]
+
+
+def test_set_sketches_equal_python_sets():
+    # Reference: plain-Python sets, bucket counts by the fingerprint's low bits, and the bound
+    # sum_w min(count_A(w), count_B(w)) >= |A & B| checked for every pair (exhaustive comparison).
+    from prep.neardup import kernels
+
+    sh, sets = _random_sets(11, 160)
+    sizes, sketch, excess = kernels.set_sketches(sh.hashes, sh.offsets)
+    buckets, levels = kernels.SKETCH_BUCKETS, kernels.SKETCH_LEVELS
+    counts = np.zeros((len(sets), buckets), dtype=np.int64)
+    for t, s in enumerate(sets):
+        assert sizes[t] == len(s)
+        for x in s:
+            counts[t, x % buckets] += 1
+        bits = np.unpackbits(sketch[t].view(np.uint8), bitorder="little").reshape(levels, buckets)
+        for level in range(levels):
+            assert np.array_equal(bits[level], (counts[t] > level).astype(np.uint8))
+        assert excess[t] == np.maximum(counts[t] - levels, 0).sum()
+    assert excess.max() > 0  # the large set goes past the last level
+    # The bound the kernel uses (numpy's popcount here) against the bucket counts and the sets.
+    pop = np.bitwise_count(sketch[:, None, :] & sketch[None, :, :]).sum(axis=2, dtype=np.int64)
+    bound = pop + np.minimum(excess[:, None], excess[None, :])
+    by_buckets = np.minimum(counts[:, None, :], counts[None, :, :]).sum(axis=2)
+    assert (bound >= by_buckets).all()
+    for a in range(len(sets)):
+        for b in range(len(sets)):
+            assert by_buckets[a, b] >= len(sets[a] & sets[b])
+
+
+@pytest.mark.parametrize("threshold", [0.3, 0.6, 0.8])
+def test_filtered_candidates_equal_brute_force(threshold):
+    # Reference: brute force over all pairs. The candidates are the pairs sharing a key in at least
+    # one band (a bucket far larger than any other included); every candidate whose exact Jaccard
+    # (Python sets) reaches the threshold must come out, nothing else than candidates may, and the
+    # count of distinct candidates is exact. The result must not depend on the work split.
+    sh, sets = _random_sets(int(threshold * 10), 300, threshold)
+    from prep.neardup import kernels
+
+    m, bands = len(sets), 4
+    rng = np.random.default_rng(5)
+    keys = rng.integers(0, 90, size=(m, bands)).astype(np.uint64)
+    keys[rng.choice(m, size=lsh.MAX_BUCKET_ALL_PAIRS + 30, replace=False), 2] = np.uint64(10**6)  # one large bucket
+    sizes, sketch, excess = kernels.set_sketches(sh.hashes, sh.offsets)
+    signed = search._Signed(keys=keys, active=sizes > 0, sizes=sizes, sketch=sketch, excess=excess)
+    i, j, n_candidates, large = search._lsh_candidates(signed, threshold)
+    active = np.flatnonzero(sizes > 0)
+    want, candidates = set(), 0
+    for x in active:
+        for y in active[active > x]:
+            if (keys[x] == keys[y]).any():
+                candidates += 1
+                a, b = sets[x], sets[y]
+                if len(a & b) / len(a | b) >= threshold:
+                    want.add((int(x), int(y)))
+    got = list(zip(i.tolist(), j.tolist()))
+    assert len(got) == len(set(got)) and got == sorted(got)
+    assert want <= set(got)
+    assert all((keys[x] == keys[y]).any() for x, y in got)
+    assert n_candidates == candidates
+    assert len(got) < candidates  # the bounds did drop pairs
+    assert large == 1
+    # The same pairs from one work item as from the split the search chose (threads).
+    monkey = search._threads
+    try:
+        search._threads = lambda: 1
+        one = search._lsh_candidates(signed, threshold)
+    finally:
+        search._threads = monkey
+    assert np.array_equal(one[0], i) and np.array_equal(one[1], j) and one[2] == n_candidates
+
+
+@pytest.mark.parametrize("threshold", [0.5, 0.8])
+def test_search_verifies_the_same_pairs_as_verifying_every_candidate(threshold):
+    # Reference: the numpy definition of the candidates (lsh.candidate_pairs: every pair sharing a
+    # band key) with every candidate verified exactly. The search drops candidates by its bounds
+    # before verifying; it must end with exactly the same verified pairs and candidate count.
+    rng = random.Random(8)
+    words = "scooter bike dock unlock refund charge app map battery brake station ride helmet lock".split()
+    base = [" ".join(rng.choice(words) for _ in range(rng.randint(3, 30))) for _ in range(150)]
+    texts = []
+    for _ in range(1500):  # templated variants: many pairs near every threshold, some large buckets
+        w = rng.choice(base).split()
+        for _ in range(rng.randint(0, 4)):
+            w[rng.randrange(len(w))] = rng.choice(words)
+        texts.append(" ".join(w))
+    # One long shared phrase and a short varying tail: buckets above MAX_BUCKET_ALL_PAIRS at 0.5.
+    common = "the map will not load past the splash screen near the station"
+    texts += [common + " " + " ".join(rng.choice(words) for _ in range(rng.randint(2, 8))) for _ in range(400)]
+    distinct = pl.Series(list(dict.fromkeys(texts)))
+    settings = Settings(threshold=threshold)
+    found = find(distinct, settings)
+    b, r, _ = lsh.choose_bands(threshold, settings.permutations)
+    sh = shingle(distinct)
+    ci, cj, _ = lsh.candidate_pairs(minhash.signatures(sh), b, r, active=sh.counts > 0)
+    sim = verify.jaccard_pairs(sh, ci, cj)
+    ok = sim >= threshold
+    assert found.facts["candidates"] == ci.size
+    assert found.facts["exactly_verified"] < ci.size  # the bounds did drop candidates
+    assert found.facts["large_buckets"] >= (1 if threshold == 0.5 else 0)
+    assert np.array_equal(found.i, ci[ok]) and np.array_equal(found.j, cj[ok])
+    assert np.array_equal(found.similarity, sim[ok])
