@@ -52,6 +52,9 @@ def render_again(folder: Path, *, shown: str | None = None) -> list[str]:
         ) from exc
     if not isinstance(card, dict):
         raise CardFileError(f"`{shown}/{CARD_JSON}` is not a JSON object.")
+    if card.get("card_version") == "1.1" and "engine" not in card:
+        # Version 1.2 only added `engine`; every 1.1 card was written by the local engine.
+        card = {**card, "card_version": CARD_VERSION, "engine": "local"}
     if card.get("card_version") != CARD_VERSION:
         raise CardFileError(
             f"`{shown}/{CARD_JSON}` has card version {card.get('card_version')!r}; this prep renders version "

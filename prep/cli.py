@@ -14,7 +14,7 @@ from typing import Any
 import click
 
 from prep import __version__
-from prep.errors import PrepError
+from prep.errors import PipelineError, PrepError
 
 
 def _fail(exc: BaseException, debug: bool, code: int) -> None:
@@ -87,8 +87,24 @@ def cli() -> None:
     help="Replace the output folder even if it is not empty and prep did not write it (everything in it is deleted). "
     "A folder holding an input file, the pipeline file or the current folder is refused even then.",
 )
+@click.option(
+    "--engine",
+    type=click.Choice(["local", "dask"]),
+    default=None,
+    help="local: one process (the default); dask: row-local steps run per partition on a Dask cluster. "
+    "Overrides `engine` in the pipeline file.",
+)
+@click.option(
+    "--scheduler",
+    metavar="ADDRESS",
+    default=None,
+    help="With --engine dask: the address of a running Dask scheduler (tcp://host:8786); "
+    "without it a local cluster is started and closed again.",
+)
 @debug_option
-def run(pipeline: Path, out: Path | None, quiet: bool, force: bool, debug: bool) -> None:
+def run(
+    pipeline: Path, out: Path | None, quiet: bool, force: bool, engine: str | None, scheduler: str | None, debug: bool
+) -> None:
     """Run PIPELINE end to end and write the outputs.
 
     Ends with the accounting line: rows read = train + validation + test + set aside.
@@ -100,7 +116,11 @@ def run(pipeline: Path, out: Path | None, quiet: bool, force: bool, debug: bool)
     loaded = _guard(debug, load_pipeline, pipeline)
     if not quiet:
         click.echo(f"prep {__version__}: {loaded.dataset} ({pipeline})", err=True)
-    result = _guard(debug, run_pipeline, loaded, out=out, report=_Printer(quiet), force=force)
+    if scheduler is not None and (engine or loaded.engine.name) != "dask":
+        _fail(PipelineError("--scheduler needs the Dask engine: add --engine dask."), debug, 2)
+    result = _guard(
+        debug, run_pipeline, loaded, out=out, report=_Printer(quiet), force=force, engine=engine, scheduler=scheduler
+    )
     if not quiet:
         click.echo(f"  done in {result.seconds:.1f} s", err=True)
     click.echo(result.accounting_line())

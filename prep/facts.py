@@ -62,3 +62,5 @@ class RunFacts:
     ledger: pl.DataFrame                  # the full set-aside ledger
     rows_read: int
     extra: dict[str, Any] = field(default_factory=dict)
+    # Which engine ran the pipeline ("local" or "dask"); the only card field allowed to differ between them.
+    engine: str = "local"

@@ -114,6 +114,34 @@ class About:
     contact: str | None = None
 
 
+# Rows per partition of the Dask engine (prep.dask_engine); a rule of thumb: large enough that
+# scheduling costs little, small enough for a worker's memory (common practice, no source).
+DEFAULT_PARTITION_ROWS = 100_000
+
+
+@dataclass(frozen=True)
+class EngineSpec:
+    """``engine``: ``local`` (one process, the default) or ``dask``, as a name or a mapping.
+
+    ``scheduler``: address of a running Dask scheduler (``tcp://host:8786``); without it the Dask
+    engine starts a local cluster of ``workers`` processes (default: the usable cores).
+    ``partition_rows``: rows per partition. ``prep run --engine/--scheduler`` override these.
+    """
+
+    name: Literal["local", "dask"] = "local"
+    scheduler: str | None = None
+    workers: int | None = None
+    partition_rows: int = DEFAULT_PARTITION_ROWS
+
+    def check(self) -> None:
+        if self.scheduler is not None and not self.scheduler.strip():
+            raise ConfigValueError("scheduler", "must be a scheduler address such as tcp://host:8786 (or be left out)")
+        if self.workers is not None and self.workers < 1:
+            raise ConfigValueError("workers", "must be 1 or more")
+        if self.partition_rows < 1:
+            raise ConfigValueError("partition_rows", "must be 1 or more")
+
+
 @dataclass(frozen=True)
 class _PipelineSpec:
     dataset: str
@@ -126,6 +154,7 @@ class _PipelineSpec:
     description: str | None = None
     about: About | None = None
     on_unreadable: Literal["set_aside", "stop"] = "set_aside"
+    engine: Literal["local", "dask"] | EngineSpec | None = None
 
 
 # ---------------------------------------------------------------------------
@@ -168,6 +197,7 @@ class Pipeline:
     on_unreadable: str
     sha256: str
     canonical_columns: tuple[str, ...] = field(default=())
+    engine: EngineSpec = field(default_factory=EngineSpec)
 
     @property
     def folder(self) -> Path:
@@ -375,4 +405,5 @@ def load_pipeline(path: str | Path) -> Pipeline:
         path=path, dataset=spec.dataset, description=spec.description, about=spec.about or About(),
         sources=tuple(sources), label=spec.label, text=tuple(spec.text), steps=tuple(steps), split=split,
         output=output, on_unreadable=spec.on_unreadable, sha256=sha, canonical_columns=tuple(canonical),
+        engine=EngineSpec(name=spec.engine) if isinstance(spec.engine, str) else (spec.engine or EngineSpec()),
     )

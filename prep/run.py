@@ -193,16 +193,29 @@ def apply_steps(
 
 
 def run_pipeline(
-    pipeline: Pipeline, *, out: Path | None = None, report: Reporter = _quiet, force: bool = False
+    pipeline: Pipeline,
+    *,
+    out: Path | None = None,
+    report: Reporter = _quiet,
+    force: bool = False,
+    engine: str | None = None,
+    scheduler: str | None = None,
+    partition_rows: int | None = None,
 ) -> RunResult:
     """Run ``pipeline`` end to end and write its outputs into ``out`` (default: the file's `output`).
 
     ``force`` lets prep replace a non-empty output folder that it did not write (see
     :func:`prep.write.check_output_folder` for what is refused even then).
+    ``engine`` (``local`` or ``dask``), ``scheduler`` and ``partition_rows`` override the pipeline
+    file's ``engine`` setting; the Dask engine lives in :mod:`prep.dask_engine`.
     """
-    from prep.card import build_card, render_markdown, write_card_files
-    from prep.split import assign_splits, split_tables
+    settings = getattr(pipeline, "engine", None)
+    if (engine or getattr(settings, "name", "local")) == "dask":
+        from prep.dask_engine import run_pipeline_dask
 
+        return run_pipeline_dask(
+            pipeline, out=out, report=report, force=force, scheduler=scheduler, partition_rows=partition_rows
+        )
     started = time.perf_counter()
     started_at = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
     out = Path(out) if out is not None else pipeline.output
@@ -219,20 +232,57 @@ def run_pipeline(
     try:
         table, step_facts, timings, outputs = apply_steps(pipeline, table, ledger, report)
     except DataError as exc:
-        extra = getattr(exc, "outputs", {})
-        written = []
-        for name, frame in extra.items():
-            target = out.parent / f"{out.name}.{name}.parquet"
-            out.parent.mkdir(parents=True, exist_ok=True)
-            # Written beside the output folder (which a failed run leaves untouched), atomically:
-            # a crash leaves either the previous file or the new one, never half of one.
-            partial = target.with_name(f".{target.name}.prep-tmp-{os.getpid()}")
-            frame.write_parquet(partial)
-            os.replace(partial, target)
-            written.append(str(target))
-        if written:
-            raise DataError(f"{exc.message} Failure cases: {', '.join(f'`{w}`' for w in written)}.") from exc
-        raise
+        raise_with_failure_cases(out, exc)
+    return finish_run(
+        pipeline, out=out, shown_out=shown_out, table=table, ledger=ledger, source_facts=source_facts,
+        rows_read=rows_read, card_inputs=card_inputs, step_facts=step_facts, timings=timings, outputs=outputs,
+        started=started, started_at=started_at, report=report,
+    )
+
+
+def raise_with_failure_cases(out: Path, exc: DataError) -> None:
+    """Write a failed step's failure cases beside the output folder, then raise ``exc`` naming them."""
+    extra = getattr(exc, "outputs", {})
+    written = []
+    for name, frame in extra.items():
+        target = out.parent / f"{out.name}.{name}.parquet"
+        out.parent.mkdir(parents=True, exist_ok=True)
+        # Written beside the output folder (which a failed run leaves untouched), atomically:
+        # a crash leaves either the previous file or the new one, never half of one.
+        partial = target.with_name(f".{target.name}.prep-tmp-{os.getpid()}")
+        frame.write_parquet(partial)
+        os.replace(partial, target)
+        written.append(str(target))
+    if written:
+        raise DataError(f"{exc.message} Failure cases: {', '.join(f'`{w}`' for w in written)}.") from exc
+    raise exc
+
+
+def finish_run(
+    pipeline: Pipeline,
+    *,
+    out: Path,
+    shown_out: str,
+    table: pl.DataFrame,
+    ledger: Ledger,
+    source_facts: list[SourceFacts],
+    rows_read: int,
+    card_inputs: dict[str, Any],
+    step_facts: list[StepFacts],
+    timings: list[StepTiming],
+    outputs: dict[str, pl.DataFrame],
+    started: float,
+    started_at: str,
+    report: Reporter = _quiet,
+    engine: str = "local",
+) -> RunResult:
+    """Split the cleaned ``table``, run the after-split steps, check the accounting, write everything.
+
+    Shared by both engines (the Dask engine calls it with the table it collected), so the
+    writing always happens here, on the client, through :class:`prep.write.OutputFolder`.
+    """
+    from prep.card import build_card, write_card_files
+    from prep.split import assign_splits, split_tables
 
     t0 = time.perf_counter()
     split = assign_splits(
@@ -286,6 +336,7 @@ def run_pipeline(
             split_notes=list(split.notes),
             ledger=ledger_frame,
             rows_read=rows_read,
+            engine=engine,
         )
         facts.extra["near_duplicate_audit"] = leakage_audit
         facts.extra.update(card_inputs)

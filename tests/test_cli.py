@@ -51,7 +51,7 @@ def test_unknown_key_exit_2_names_key_and_line(cli_runner, small_pipeline):
     result = invoke(cli_runner, "run", small_pipeline)
     assert result.exit_code == 2
     assert result.stderr.strip() == (
-        f"Error: {small_pipeline}, line 2: `colour`: unknown key (known keys: about, dataset, description, label, "
+        f"Error: {small_pipeline}, line 2: `colour`: unknown key (known keys: about, dataset, description, engine, label, "
         "on_unreadable, output, sources, split, steps, text)."
     )
     assert "Traceback" not in result.output

@@ -27,7 +27,7 @@ from prep.facts import RunFacts
 from prep.ledger import Reason
 from prep.split import min_rows_for_all_splits
 
-CARD_VERSION = "1.1"
+CARD_VERSION = "1.2"  # 1.2: the `engine` field
 TASK_KIND = "single-label classification"
 SPLITS = ("train", "validation", "test")
 ABOUT_FIELDS = ("purpose", "intended_use", "license", "maintainer", "contact")
@@ -111,6 +111,7 @@ SECTION_ORDER = (
     "leakage",
     "splits",
     "provenance",
+    "engine",
     "accounting",
     "personal_data_notice",
     "metric_noise",
@@ -376,6 +377,11 @@ def _section_provenance(facts: RunFacts, d: _Derived) -> dict[str, Any]:
             for s in facts.sources
         ],
     }
+
+
+def _section_engine(facts: RunFacts, d: _Derived) -> str:
+    """``local`` or ``dask``: the only field in which two engines' cards of the same run may differ."""
+    return facts.engine
 
 
 def _section_accounting(facts: RunFacts, d: _Derived) -> dict[str, Any]:

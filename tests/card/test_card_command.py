@@ -71,3 +71,17 @@ def test_card_breaking_the_schema_is_refused(demo_output, tmp_path):
     result = CliRunner().invoke(cli, ["card", str(out)])
     assert result.exit_code == 1 and "breaks the card schema" in result.output
     assert (out / "card.md").read_bytes() == before
+
+
+def test_a_version_1_1_card_is_rendered_as_written_by_the_local_engine(demo_output, tmp_path):
+    # card_version 1.1 is 1.2 without `engine` (every 1.1 card came from the local engine).
+    import json
+
+    out = copy_output(demo_output, tmp_path)
+    card = json.loads((out / "card.json").read_text(encoding="utf-8"))
+    assert card.pop("engine") == "local"
+    card["card_version"] = "1.1"
+    (out / "card.json").write_text(json.dumps(card, indent=2), encoding="utf-8")
+    result = CliRunner().invoke(cli, ["card", str(out)])
+    assert result.exit_code == 0, result.output
+    assert (out / "card.html").read_bytes() == (demo_output / "card.html").read_bytes()

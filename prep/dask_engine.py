@@ -1,0 +1,620 @@
+"""The Dask engine: ``prep run PIPELINE --engine dask [--scheduler ADDRESS]``.
+
+Same inputs, same outputs as the local engine (:func:`prep.run.run_pipeline`): the same rows in
+each split, the same ledger, the same clusters, the same ``card.json`` apart from its ``engine``
+field. ``tests/test_dask_engine.py`` checks this on the demo with a real two-process cluster.
+
+How a run is spread (what runs where, and what travels to the client):
+
+1. **Reading**: one task per source on a worker, with prep's own readers (so row numbering, line
+   numbers and unreadable-record ledger entries are those of the local engine). The worker needs
+   the input file under the same absolute path (a shared filesystem). The source's table stays on
+   the worker; the client receives its facts (counts, hash, size) and its unreadable-record ledger
+   rows (provenance and line numbers, no cell values). The table is then cut into partitions of
+   ``partition_rows`` rows (a partition never spans two sources).
+2. **Row-local steps** (:data:`ROW_LOCAL`: ``redact``, ``language``, ``missing``, and ``normalise``
+   in two phases) run per partition on the workers through the step's own ``apply`` with its own
+   :class:`~prep.steps.base.StepContext` and ledger. The client receives per partition only the
+   ledger rows the step set aside (provenance, reason, detail: never texts) and the step's facts,
+   which :data:`MERGERS` combine into the facts of the whole table (counts add up; the language
+   step's count of distinct texts is merged from 64-bit hashes of the distinct prefixes, see
+   :func:`_language_extra`). ``normalise`` is row-local except for its label merges, which need the
+   label spellings of the whole table: phase 1 cleans the text columns per partition and returns
+   the counts of the cleaned label spellings (class names and counts, small), the client decides
+   the mapping exactly as the step does, phase 2 applies it per partition.
+3. **Global steps** (``exact_duplicates``, ``near_duplicates``, ``schema``, ``rare_classes``, and any
+   step not in :data:`ROW_LOCAL`) run on the client over the collected table, through the same
+   code path as the local engine. This is stage 1 of the design: the collected table holds the
+   texts, so the client needs memory for the table after the row-local steps (what the local
+   engine needs anyway). Steps after a global step that are row-local go back to the workers.
+4. **Split, after-split steps, audit, card and writing** run on the client in
+   :func:`prep.run.finish_run`, the function the local engine calls, so the output folder is
+   written only by :class:`prep.write.OutputFolder` on the client: a failed or killed run never
+   damages the previous output.
+
+Failures: a worker that dies is replaced by Dask and its tasks run again (Dask's retries; the
+read tasks and step tasks are pure functions of their inputs, so the result is unchanged). When a
+task kills workers more often than the scheduler allows (``distributed.scheduler.allowed-failures``)
+the run stops with a one-line :class:`~prep.errors.PrepError`. Errors a step raises on a worker
+(prep's own errors) come back to the client as the same one-line message and exit code.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as _dt
+import logging
+import os
+import signal
+import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from operator import itemgetter
+from pathlib import Path
+from typing import Any
+
+import polars as pl
+
+from prep.config import to_plain
+from prep.errors import DataError, PipelineError, PrepError
+from prep.facts import SourceFacts, StepFacts
+from prep.ledger import Ledger
+from prep.pipeline import DEFAULT_PARTITION_ROWS, PROVENANCE_COLUMNS, Pipeline
+from prep.steps import step_module
+from prep.steps.base import StepContext
+
+__all__ = ["ROW_LOCAL", "MERGERS", "run_pipeline_dask", "WorkerError"]
+
+INSTALL_HINT = 'The Dask engine needs the `dask` extra: pip install -e ".[dask]" (or pip install "prep[dask]").'
+# Seconds to wait for a scheduler given with --scheduler (common practice, no source).
+CONNECT_TIMEOUT = "10s"
+# The test-only hook (see _test_hook): the environment variable tests set, and pytest's own.
+TEST_KILL_ENV = "PREP_DASK_TEST_KILL"
+# Fixed seed for the transient 64-bit hashes of language prefixes (only counted, never stored).
+_HASH_SEED = 0x5EED
+
+
+# --- errors crossing the process boundary -------------------------------------------------------
+
+
+class WorkerError(PrepError):
+    """A prep error raised on a worker, carried to the client with its message and exit code.
+
+    prep's error classes take keyword-only arguments, which pickling (how Dask ships an
+    exception back) cannot rebuild; this class can, and keeps the one-line message.
+    """
+
+    def __init__(self, message: str, exit_code: int = 1) -> None:
+        super().__init__(message)
+        self.exit_code = exit_code
+
+    def __reduce__(self):
+        return (WorkerError, (self.message, self.exit_code))
+
+
+@contextmanager
+def _as_worker_error() -> Iterator[None]:
+    try:
+        yield
+    except PrepError as exc:
+        raise WorkerError(str(exc), exc.exit_code) from None
+
+
+def _test_hook() -> None:
+    """Tests only: make this worker process kill itself (SIGKILL) at the start of a step task.
+
+    Fires only when both ``PREP_DASK_TEST_KILL`` and ``PYTEST_CURRENT_TEST`` (which pytest sets
+    while a test runs; worker processes started by that test inherit it) are in the environment.
+    ``PREP_DASK_TEST_KILL`` names a control file: ``always`` kills every time (the scheduler then
+    gives up on the task); ``once`` kills the first worker that renames the file away (rename is
+    atomic: exactly one kill); no file, no kill.
+    """
+    control = os.environ.get(TEST_KILL_ENV)
+    if not control or "PYTEST_CURRENT_TEST" not in os.environ:
+        return
+    try:
+        mode = Path(control).read_text().strip()
+        if mode == "once":
+            os.rename(control, control + ".fired")
+        elif mode != "always":
+            return
+    except OSError:
+        return
+    os.kill(os.getpid(), signal.SIGKILL)
+
+
+# --- worker tasks ------------------------------------------------------------------------------
+
+
+def _read_task(pipeline: Pipeline, index: int) -> tuple[pl.DataFrame, dict[str, Any]]:
+    """Read source ``index`` with prep's readers; its table (all canonical columns) and its facts."""
+    from prep.card.inputs import input_facts
+    from prep.run import _read_source
+
+    source = pipeline.sources[index]
+    with _as_worker_error():
+        if not source.path.is_file() or not os.access(source.path, os.R_OK):
+            raise PipelineError(
+                f"input file `{source.path_text}` cannot be read on a Dask worker; every worker needs the inputs "
+                "under the same path (a shared filesystem).",
+                key=f"sources[{index}].path",
+            )
+        t0 = time.perf_counter()
+        ledger = Ledger()
+        frame, facts = _read_source(pipeline, index, source, ledger)
+        columns = [*PROVENANCE_COLUMNS, *pipeline.canonical_columns]
+        missing = [c for c in columns if c not in frame.columns]
+        frame = frame.with_columns(pl.lit(None, dtype=pl.String).alias(c) for c in missing).select(columns)
+        meta = {
+            "facts": facts,
+            "ledger": ledger.frame(),
+            "height": frame.height,
+            "inputs": input_facts(pipeline, frame),
+            "seconds": time.perf_counter() - t0,
+        }
+    return frame, meta
+
+
+def _slice(frame: pl.DataFrame, offset: int, length: int) -> pl.DataFrame:
+    return frame.slice(offset, length)
+
+
+def _copy(frame: pl.DataFrame) -> pl.DataFrame:
+    """A partition made on the client, as a task (so Dask can run it again if its worker dies)."""
+    return frame
+
+
+class _CallLedger(Ledger):
+    """A ledger that remembers each ``set_aside`` call, also the empty ones, in call order.
+
+    The local engine's ledger holds a step's rows call by call (e.g. ``missing``: all
+    ``empty_text`` rows, then all ``missing_label`` rows). Merging partitions call by call keeps
+    that order when every partition made the same calls.
+    """
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.calls: list[pl.DataFrame | None] = []
+
+    def add(self, rows: pl.DataFrame, **kwargs: Any) -> None:
+        before = len(self._parts)
+        super().add(rows, **kwargs)
+        self.calls.append(self._parts[-1] if len(self._parts) > before else None)
+
+
+def _context(pipeline: Pipeline, name: str, ledger: Ledger) -> StepContext:
+    return StepContext(
+        step=name,
+        label=pipeline.label,
+        text=pipeline.text,
+        ledger=ledger,
+        split_fractions=pipeline.split.fractions,
+        pipeline_dir=pipeline.folder,
+        seed=pipeline.split.seed,
+        group=pipeline.split.group,
+    )
+
+
+def _step_task(pipeline: Pipeline, name: str, config: Any, part: pl.DataFrame, phase: str) -> tuple[pl.DataFrame, dict[str, Any]]:
+    """Run one row-local step (or one phase of ``normalise``) on one partition."""
+    _test_hook()
+    with _as_worker_error():
+        ledger = _CallLedger()
+        ctx = _context(pipeline, name, ledger)
+        extra: dict[str, Any] = {}
+        if phase == "normalise-1":
+            out, extra = _normalise_texts(part, config, ctx)
+        elif phase == "normalise-2":
+            out, extra = _normalise_labels(part, config, ctx)
+        else:
+            module = step_module(name)
+            run_config = config
+            if name == "language":
+                # Worker processes are daemons and may not start processes of their own
+                # (langdetect's pool); the answer does not depend on the worker count.
+                run_config = dataclasses.replace(config, workers=1) if config.backend == "langdetect" else config
+                extra = _language_extra(part, config, ctx)
+            out = module.apply(part, run_config, ctx)
+    meta = {
+        "rows_in": part.height,
+        "rows_out": out.height,
+        "calls": ledger.calls,
+        "facts": dict(ctx.facts),
+        "extra": extra,
+        "outputs": dict(ctx.outputs),
+        "columns": out.columns,
+    }
+    return out, meta
+
+
+# --- per-step knowledge: normalise in two phases ------------------------------------------------
+
+
+def _normalise_texts(part: pl.DataFrame, config: Any, ctx: StepContext) -> tuple[pl.DataFrame, dict[str, Any]]:
+    """Phase 1: the text columns exactly as the step cleans them; counts of the cleaned label spellings."""
+    from prep.steps import normalise
+
+    out = normalise.apply(part, dataclasses.replace(config, labels=False), ctx)
+    cleaned = normalise.clean_chars(part.get_column(ctx.label), form=config.unicode_form)
+    counts = cleaned.drop_nulls().value_counts(name="n").rename({ctx.label: "spelling"})
+    return out, {"label_counts": counts}
+
+
+def _normalise_labels(part: pl.DataFrame, config: Any, ctx: StepContext) -> tuple[pl.DataFrame, dict[str, Any]]:
+    """Phase 2: the label column cleaned and mapped to the whole table's canonical spellings."""
+    from prep.steps import normalise
+
+    mapping: dict[str, str] = config["mapping"]
+    before = part.get_column(ctx.label)
+    cleaned = normalise.clean_chars(before, form=config["unicode_form"]).alias(ctx.label)
+    merged = cleaned.replace(list(mapping), list(mapping.values())) if mapping else cleaned
+    return part.with_columns(merged), {"label_changed": int(before.ne_missing(merged).sum())}
+
+
+def _label_mapping(counts: pl.DataFrame) -> tuple[dict[str, str], list[dict]]:
+    """The step's own rule (:func:`prep.steps.normalise._label_mapping`) on spelling counts.
+
+    Spellings equal after lower-casing are one class; the most frequent spelling names it, ties
+    to the smallest in code point order. Equal to the step's result on the whole table because
+    the counts are the whole table's (checked by the equality test).
+    """
+    counts = (
+        counts.group_by("spelling").agg(pl.col("n").sum())
+        .with_columns(pl.col("spelling").str.to_lowercase().alias("key"))
+        .sort(["key", "n", "spelling"], descending=[False, True, False])
+    )
+    grouped = counts.group_by("key", maintain_order=True).agg(
+        pl.col("spelling").first().alias("canonical"), pl.col("spelling"), pl.col("n")
+    )
+    mapping: dict[str, str] = {}
+    merges: list[dict] = []
+    for _key, canonical, spellings, ns in grouped.iter_rows():  # one iteration per class
+        for s in spellings:
+            mapping[s] = canonical
+        if len(spellings) > 1:
+            merges.append({"class": canonical, "spellings": dict(sorted(zip(spellings, ns)))})
+    merges.sort(key=lambda m: m["class"])
+    return mapping, merges
+
+
+def _normalise_partitionable(config: Any, pipeline: Pipeline, columns: list[str]) -> bool:
+    text_columns = list(pipeline.text) if config.columns is None else list(config.columns)
+    # The label read as a text column, or a missing column (the step's own error message): client.
+    return pipeline.label in columns and pipeline.label not in text_columns and all(c in columns for c in text_columns)
+
+
+# --- per-step knowledge: the language step's distinct texts -------------------------------------
+
+
+def _language_extra(part: pl.DataFrame, config: Any, ctx: StepContext) -> dict[str, Any]:
+    """64-bit hashes of the distinct prefixes the step identifies in this partition.
+
+    The step reports ``distinct_texts``, the number of distinct prefixes of the texts with at
+    least ``min_chars`` letters over the whole table: not a sum over partitions. The same
+    definition as :func:`prep.steps.language.detect_languages`, computed here once more, and
+    only hashes travel. polars' hash with a fixed seed is the same in every process of one
+    polars version; it is counted, never stored. Two distinct prefixes collide with
+    probability about n^2 / 2^65 (n = 10^6: 3e-8), which would undercount by one.
+    """
+    columns = list(ctx.text) if config.columns is None else list(config.columns)
+    if not all(c in part.columns for c in columns):
+        return {}
+    texts = part.select(pl.concat_str([pl.col(c) for c in columns], separator=" ", ignore_nulls=True)).to_series()
+    texts = texts.fill_null("")
+    if config.min_chars:
+        keep = texts.str.contains(rf"(?:\p{{L}}\P{{L}}*){{{config.min_chars}}}")
+    else:
+        keep = pl.repeat(True, texts.len(), eager=True)
+    prefixes = texts.filter(keep).str.slice(0, config.prefix_chars).unique()
+    return {"prefix_hashes": prefixes.hash(seed=_HASH_SEED)}
+
+
+# --- merging facts of partitions -----------------------------------------------------------------
+
+
+def _sum_dicts(dicts: list[dict[str, int]], *, sort: bool = False) -> dict[str, int]:
+    out: dict[str, int] = {}
+    for d in dicts:
+        for k, v in d.items():
+            out[k] = out.get(k, 0) + v
+    return dict(sorted(out.items())) if sort else out
+
+
+def _merge_redact(facts: list[dict], extras: list[dict]) -> dict[str, Any]:
+    first = facts[0]
+    return {
+        "kinds": first["kinds"],
+        "placeholders": first["placeholders"],
+        "counts": _sum_dicts([f["counts"] for f in facts]),
+        "rows_changed": sum(f["rows_changed"] for f in facts),
+        "columns": first["columns"],
+    }
+
+
+def _merge_language(facts: list[dict], extras: list[dict]) -> dict[str, Any]:
+    first = facts[0]
+    hashes = [e["prefix_hashes"] for e in extras if "prefix_hashes" in e]
+    distinct = pl.concat(hashes).n_unique() if hashes else 0
+    merged = dict(first)
+    merged.update(
+        counts=_sum_dicts([f["counts"] for f in facts], sort=True),  # the step sorts by code
+        too_short=sum(f["too_short"] for f in facts),
+        distinct_texts=int(distinct),
+        rows_set_aside=sum(f["rows_set_aside"] for f in facts),
+    )
+    return merged
+
+
+def _merge_missing(facts: list[dict], extras: list[dict]) -> dict[str, Any]:
+    columns: dict[str, dict[str, int]] = {}
+    for f in facts:
+        for column, counts in f["columns"].items():
+            target = columns.setdefault(column, dict.fromkeys(counts, 0))
+            for k, v in counts.items():
+                target[k] += v
+    return {"columns": columns, "empty_text": sum(f["empty_text"] for f in facts)}
+
+
+# Steps that run per partition, with the function that merges their facts (in partition order).
+MERGERS: dict[str, Callable[[list[dict], list[dict]], dict[str, Any]]] = {
+    "redact": _merge_redact,
+    "language": _merge_language,
+    "missing": _merge_missing,
+}
+ROW_LOCAL = frozenset(MERGERS) | {"normalise"}
+
+
+def _merge_inputs(parts: list[dict[str, Any]]) -> dict[str, Any]:
+    """The card's missing-values-by-source facts of the whole table from those of each source."""
+    if not parts:
+        return {}
+    merged = {key: dict(value) for key, value in parts[0].items()}
+    for key in merged:
+        rows: dict[tuple[str, str], dict] = {}
+        for part in parts:
+            for item in part[key]["by_source"]:
+                k = (item["source"], item["column"])
+                if k in rows:
+                    rows[k] = {**rows[k], "rows": rows[k]["rows"] + item["rows"], "missing": rows[k]["missing"] + item["missing"]}
+                else:
+                    rows[k] = dict(item)
+        merged[key]["by_source"] = list(rows.values())
+    return merged
+
+
+def _merge_calls(metas: list[dict[str, Any]]) -> list[pl.DataFrame]:
+    """Ledger parts of a step in the local engine's order (call by call, partitions in order)."""
+    calls = [m["calls"] for m in metas]
+    if calls and all(len(c) == len(calls[0]) for c in calls):
+        ordered = [c[j] for j in range(len(calls[0])) for c in calls]
+    else:  # partitions made different calls: partition order (the same rows, maybe another order)
+        ordered = [frame for c in calls for frame in c]
+    return [f for f in ordered if f is not None]
+
+
+# --- the client side ---------------------------------------------------------------------------
+
+
+def _import_dask():
+    try:
+        import distributed  # noqa: F401
+        from distributed import Client, LocalCluster
+    except ImportError:
+        raise PipelineError(f"--engine dask: Dask is not installed. {INSTALL_HINT}") from None
+    return Client, LocalCluster
+
+
+@contextmanager
+def _client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
+    Client, LocalCluster = _import_dask()
+    if scheduler:
+        try:
+            client = Client(scheduler, timeout=CONNECT_TIMEOUT)
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise PrepError(
+                f"Cannot reach the Dask scheduler at `{scheduler}` ({type(exc).__name__}).",
+                hint="Start it with `dask scheduler` and check the address, or leave out --scheduler to use a local cluster.",
+            ) from exc
+        with client:
+            yield client
+        return
+    from prep.lang import default_workers
+
+    n = workers or default_workers()
+    # Worker logs stay quiet: prep reports errors itself, in one line, on the client.
+    with LocalCluster(
+        n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None, silence_logs=logging.CRITICAL
+    ) as cluster, Client(cluster) as client:
+        yield client
+
+
+@contextmanager
+def _dask_failures(what: Callable[[], str]) -> Iterator[None]:
+    """Dask's own failures (a worker killed too often, a lost scheduler) as one-line prep errors."""
+    from distributed import KilledWorker
+    from distributed.comm.core import CommClosedError
+
+    try:
+        yield
+    except KilledWorker as exc:
+        raise PrepError(
+            f"A Dask worker died again and again while running {what()}; the run stopped "
+            "and the previous output folder is unchanged.",
+            hint="Check the workers' memory and logs.",
+        ) from exc
+    except CommClosedError as exc:  # not every OSError: a global step on the client may raise one of its own
+        raise PrepError(
+            f"Lost the connection to the Dask cluster while running {what()} ({type(exc).__name__}); "
+            "the previous output folder is unchanged."
+        ) from exc
+
+
+class _Table:
+    """The table between steps: partitions on the workers (futures) or one frame on the client."""
+
+    def __init__(self, client: Any, pipeline: Pipeline, partition_rows: int) -> None:
+        self.client = client
+        self.pipeline = pipeline
+        self.partition_rows = partition_rows
+        self.parts: list[Any] | None = None   # futures, in row order
+        self.local: pl.DataFrame | None = None
+        self.columns: list[str] = []
+
+    def remote(self) -> list[Any]:
+        if self.parts is None:
+            frame = self.local
+            n = self.partition_rows
+            self.parts = [self.client.submit(_copy, frame.slice(i, n), pure=False) for i in range(0, frame.height, n)]
+            self.local = None
+        return self.parts
+
+    def collect(self) -> pl.DataFrame:
+        if self.local is None:
+            frames = self.client.gather(self.parts)
+            schema = {c: (pl.Int64 if c == "source_row" else pl.String) for c in self.columns}
+            self.local = pl.concat(frames, how="vertical") if frames else pl.DataFrame(schema=schema)
+            self.client.cancel(self.parts)
+            self.parts = None
+        return self.local
+
+
+def run_pipeline_dask(
+    pipeline: Pipeline,
+    *,
+    out: Path | None = None,
+    report: Callable[..., None] | None = None,
+    force: bool = False,
+    scheduler: str | None = None,
+    partition_rows: int | None = None,
+):
+    """Run ``pipeline`` on a Dask cluster; the arguments and result are those of :func:`prep.run.run_pipeline`."""
+    from prep.run import _quiet, finish_run, raise_with_failure_cases, step_phase
+    from prep.write import prepare_output
+
+    report = report or _quiet
+    _import_dask()  # before anything else: a missing extra is a usage error
+    settings = pipeline.engine
+    scheduler = scheduler or settings.scheduler
+    partition_rows = partition_rows or settings.partition_rows or DEFAULT_PARTITION_ROWS
+    started = time.perf_counter()
+    started_at = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+    out = Path(out) if out is not None else pipeline.output
+    shown_out = str(out)
+    prepare_output(out, [s.path for s in pipeline.sources] + [pipeline.path], shown=shown_out, force=force)
+
+    # Workers see absolute paths (their working folder is not the client's); messages use path_text.
+    remote_pipeline = dataclasses.replace(
+        pipeline,
+        path=pipeline.path.absolute(),
+        sources=tuple(dataclasses.replace(s, path=s.path.absolute()) for s in pipeline.sources),
+    )
+    stage = ["reading the sources"]
+    with _client(scheduler, settings.workers) as client, _dask_failures(lambda: stage[0]):
+        ledger = Ledger()
+        table = _Table(client, remote_pipeline, partition_rows)
+        table.columns = [*PROVENANCE_COLUMNS, *pipeline.canonical_columns]
+        reads = [client.submit(_read_task, remote_pipeline, i, pure=False) for i in range(len(pipeline.sources))]
+        frames = [client.submit(itemgetter(0), r) for r in reads]
+        metas = client.gather([client.submit(itemgetter(1), r) for r in reads])
+        del reads
+        source_facts: list[SourceFacts] = []
+        parts = []
+        for source, frame, meta in zip(pipeline.sources, frames, metas):
+            f = meta["facts"]
+            source_facts.append(f)
+            ledger.extend(meta["ledger"])
+            report("read", source=source.name, rows=f.rows_read, unreadable=f.rows_unreadable, seconds=meta["seconds"])
+            parts += [client.submit(_slice, frame, i, partition_rows) for i in range(0, meta["height"], partition_rows)]
+        table.parts = parts
+        del frames
+        rows_read = sum(f.rows_read for f in source_facts)
+        card_inputs = _merge_inputs([m["inputs"] for m in metas])
+
+        step_facts: list[StepFacts] = []
+        timings: list = []
+        outputs: dict[str, pl.DataFrame] = {}
+        for spec in pipeline.steps:
+            if step_phase(spec.name) != "table":
+                continue
+            stage[0] = f"step `{spec.name}`"
+            if table.local is None and table.parts and _partitionable(spec, pipeline, table.columns):
+                sf, timing = _run_partitioned(client, remote_pipeline, spec, table, ledger)
+                step_facts.append(sf)
+                timings.append(timing)
+                report("step", step=spec.name, rows_in=timing.rows_in, rows_out=timing.rows_out, seconds=timing.seconds)
+                continue
+            from prep.run import apply_steps
+
+            single = dataclasses.replace(pipeline, steps=(spec,))
+            try:
+                data, sf, tm, outs = apply_steps(single, table.collect(), ledger, report)
+            except DataError as exc:
+                raise_with_failure_cases(out, exc)
+            table.local, table.columns = data, list(data.columns)
+            step_facts += sf
+            timings += tm
+            outputs.update(outs)
+        stage[0] = "collecting the table"
+        cleaned = table.collect()
+    return finish_run(
+        pipeline, out=out, shown_out=shown_out, table=cleaned, ledger=ledger, source_facts=source_facts,
+        rows_read=rows_read, card_inputs=card_inputs, step_facts=step_facts, timings=timings, outputs=outputs,
+        started=started, started_at=started_at, report=report, engine="dask",
+    )
+
+
+def _partitionable(spec: Any, pipeline: Pipeline, columns: list[str]) -> bool:
+    if spec.name == "normalise":
+        return bool(spec.config.labels) and _normalise_partitionable(spec.config, pipeline, columns)
+    return spec.name in MERGERS
+
+
+def _run_partitioned(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger: Ledger):
+    """One row-local step over every partition; its ledger rows and merged facts on the client."""
+    from prep.run import StepTiming
+
+    t0 = time.perf_counter()
+    parts = table.remote()
+    rows_in = 0
+    if spec.name == "normalise":
+        first = [client.submit(_step_task, pipeline, spec.name, spec.config, p, "normalise-1", pure=False) for p in parts]
+        metas1 = client.gather([client.submit(itemgetter(1), r) for r in first])
+        mid = [client.submit(itemgetter(0), r) for r in first]
+        del first
+        spellings = [m["extra"]["label_counts"] for m in metas1]
+        counts = pl.concat(spellings) if spellings else pl.DataFrame(schema={"spelling": pl.String, "n": pl.UInt32})
+        mapping, merges = _label_mapping(counts)
+        phase2 = {"mapping": mapping, "unicode_form": spec.config.unicode_form}
+        second = [client.submit(_step_task, pipeline, spec.name, phase2, p, "normalise-2", pure=False) for p in mid]
+        metas = client.gather([client.submit(itemgetter(1), r) for r in second])
+        new_parts = [client.submit(itemgetter(0), r) for r in second]
+        del second, mid
+        changed = _sum_dicts([m["facts"].get("changed_cells", {}) for m in metas1])
+        changed[pipeline.label] = sum(m["extra"]["label_changed"] for m in metas)
+        columns = metas1[0]["facts"]["columns"]
+        facts = {"columns": columns, "changed_cells": {c: changed.get(c, 0) for c in sorted(changed)}, "label_merges": merges}
+        rows_in = sum(m["rows_in"] for m in metas1)
+        calls = _merge_calls(metas1) + _merge_calls(metas)
+    else:
+        results = [client.submit(_step_task, pipeline, spec.name, spec.config, p, "apply", pure=False) for p in parts]
+        metas = client.gather([client.submit(itemgetter(1), r) for r in results])
+        new_parts = [client.submit(itemgetter(0), r) for r in results]
+        del results
+        rows_in = sum(m["rows_in"] for m in metas)
+        facts = MERGERS[spec.name]([m["facts"] for m in metas], [m["extra"] for m in metas])
+        calls = _merge_calls(metas)
+    table.parts = new_parts
+    if metas:
+        table.columns = list(metas[0]["columns"])
+    ledger_before = len(ledger)
+    for frame in calls:
+        ledger.extend(frame)
+    rows_out = sum(m["rows_out"] for m in metas)
+    added = len(ledger) - ledger_before
+    if rows_in - rows_out != added:
+        raise AssertionError(f"step `{spec.name}` removed {rows_in - rows_out} rows but set aside {added}; this is a bug in prep.")
+    new = pl.concat(calls) if calls else pl.DataFrame(schema={"reason": pl.String})
+    counts = dict(sorted((r, n) for r, n in new.group_by("reason").len().iter_rows()))
+    step_facts = StepFacts(name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=rows_out, set_aside=counts, facts=facts)
+    return step_facts, StepTiming(spec.name, rows_in, rows_out, time.perf_counter() - t0)
+
