@@ -48,6 +48,10 @@ _RENAME_EXCHANGE = 2
 _AT_FDCWD = -100
 
 
+# Rows per Parquet row group of every file prep writes.
+ROW_GROUP_ROWS = 131_072
+
+
 def sha256_file(path: Path) -> str:
     h = hashlib.sha256()
     with open(path, "rb") as fh:
@@ -280,8 +284,12 @@ class OutputFolder:
     def write_parquet(self, name: str, frame: pl.DataFrame) -> dict[str, Any]:
         path = self.path(name)
         try:
-            # Fixed compression and statistics settings: same frame, same polars version -> same bytes.
-            frame.write_parquet(path, compression="zstd", compression_level=3, statistics=True)
+            # Fixed compression, statistics and row groups: same frame, same polars version -> same
+            # bytes. Without the rechunk the row groups followed the frame's memory chunks, which
+            # depend on how the frame was built (seen: the same rows, two engines, other bytes).
+            frame.rechunk().write_parquet(
+                path, compression="zstd", compression_level=3, statistics=True, row_group_size=ROW_GROUP_ROWS
+            )
             info = {"rows": frame.height, "bytes": path.stat().st_size, "sha256": sha256_file(path)}
         except (OSError, pl.exceptions.PolarsError) as exc:
             raise self._failed(name, exc) from exc

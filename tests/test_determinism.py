@@ -102,3 +102,20 @@ def test_rerun_in_the_same_process_is_byte_identical(tmp_path, cli_runner):
         assert result.exit_code == 0, result.output
         outputs.append(_files(out))
     assert outputs[0] == outputs[1]
+
+
+def test_parquet_bytes_do_not_depend_on_memory_chunks(tmp_path):
+    # The same rows held in one memory chunk or in two must give the same file bytes.
+    import polars as pl
+
+    from prep.write import OutputFolder
+
+    whole = pl.DataFrame({"row_id": [f"s:{i}" for i in range(300_000)], "n": list(range(300_000))})
+    pieces = pl.concat([whole.slice(0, 1_000), whole.slice(1_000)], rechunk=False)
+    assert pieces.n_chunks() == 2
+    digests = []
+    for name, frame in (("a", whole), ("b", pieces)):
+        with OutputFolder(tmp_path / name) as folder:
+            digests.append(folder.write_parquet("x.parquet", frame)["sha256"])
+            folder.commit({})
+    assert digests[0] == digests[1]
