@@ -252,29 +252,10 @@ def _normalise_labels(part: pl.DataFrame, config: Any, ctx: StepContext) -> tupl
 
 
 def _label_mapping(counts: pl.DataFrame) -> tuple[dict[str, str], list[dict]]:
-    """The step's own rule (:func:`prep.steps.normalise._label_mapping`) on spelling counts.
+    """The step's own rule on the spelling counts of every partition (the whole table's counts)."""
+    from prep.steps.normalise import label_mapping_from_counts
 
-    Spellings equal after lower-casing are one class; the most frequent spelling names it, ties
-    to the smallest in code point order. Equal to the step's result on the whole table because
-    the counts are the whole table's (checked by the equality test).
-    """
-    counts = (
-        counts.group_by("spelling").agg(pl.col("n").sum())
-        .with_columns(pl.col("spelling").str.to_lowercase().alias("key"))
-        .sort(["key", "n", "spelling"], descending=[False, True, False])
-    )
-    grouped = counts.group_by("key", maintain_order=True).agg(
-        pl.col("spelling").first().alias("canonical"), pl.col("spelling"), pl.col("n")
-    )
-    mapping: dict[str, str] = {}
-    merges: list[dict] = []
-    for _key, canonical, spellings, ns in grouped.iter_rows():  # one iteration per class
-        for s in spellings:
-            mapping[s] = canonical
-        if len(spellings) > 1:
-            merges.append({"class": canonical, "spellings": dict(sorted(zip(spellings, ns)))})
-    merges.sort(key=lambda m: m["class"])
-    return mapping, merges
+    return label_mapping_from_counts(counts)
 
 
 def _normalise_partitionable(config: Any, pipeline: Pipeline, columns: list[str]) -> bool:

@@ -187,10 +187,15 @@ def _check_columns(table: pl.DataFrame, columns: list[str], what: str) -> None:
 
 def _label_mapping(labels: pl.Series) -> tuple[dict[str, str], list[dict]]:
     """Spelling -> canonical spelling, and the merges to report (classes with >1 spelling)."""
+    counts = labels.drop_nulls().value_counts(name="n").rename({labels.name: "spelling"})
+    return label_mapping_from_counts(counts)
+
+
+def label_mapping_from_counts(counts: pl.DataFrame) -> tuple[dict[str, str], list[dict]]:
+    """:func:`_label_mapping` from spelling counts (columns ``spelling``, ``n``; a spelling may be
+    listed more than once, e.g. once per partition of the Dask engine: its counts are added)."""
     counts = (
-        labels.drop_nulls()
-        .value_counts(name="n")
-        .rename({labels.name: "spelling"})
+        counts.group_by("spelling").agg(pl.col("n").sum())
         .with_columns(pl.col("spelling").str.to_lowercase().alias("key"))
         # Most frequent first, then code point order: the first spelling of each key is canonical.
         .sort(["key", "n", "spelling"], descending=[False, True, False])
