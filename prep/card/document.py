@@ -115,7 +115,8 @@ def build_document(card: dict[str, Any]) -> tuple[str, list[Parts], list[Section
     prov = card.get("provenance", {})
     intro = [
         [
-            f"Card version {card['card_version']}, written by prep {prov.get('tool_version', '?')}. "
+            f"Card version {card['card_version']}, written by prep {prov.get('tool_version', '?')} "
+            f"({'on a Dask cluster' if card.get('engine') == 'dask' else 'in one process'}). "
             "The same facts, machine-readable, are in ",
             Code("card.json"),
             "; Croissant metadata for the split files is in ",
