@@ -182,25 +182,14 @@ class _CallLedger(Ledger):
         self.calls.append(self._parts[-1] if len(self._parts) > before else None)
 
 
-def _context(pipeline: Pipeline, name: str, ledger: Ledger) -> StepContext:
-    return StepContext(
-        step=name,
-        label=pipeline.label,
-        text=pipeline.text,
-        ledger=ledger,
-        split_fractions=pipeline.split.fractions,
-        pipeline_dir=pipeline.folder,
-        seed=pipeline.split.seed,
-        group=pipeline.split.group,
-    )
-
-
 def _step_task(pipeline: Pipeline, name: str, config: Any, part: pl.DataFrame, phase: str) -> tuple[pl.DataFrame, dict[str, Any]]:
     """Run one row-local step (or one phase of ``normalise``) on one partition."""
     _test_hook()
     with _as_worker_error():
         ledger = _CallLedger()
-        ctx = _context(pipeline, name, ledger)
+        from prep.run import step_context
+
+        ctx = step_context(pipeline, name, ledger)
         extra: dict[str, Any] = {}
         if phase == "normalise-1":
             out, extra = _normalise_texts(part, config, ctx)

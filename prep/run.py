@@ -122,9 +122,10 @@ def step_phase(name: str) -> str:
     return getattr(step_module(name), "PHASE", "table")
 
 
-def _context(pipeline: Pipeline, spec, ledger: Ledger) -> StepContext:
+def step_context(pipeline: Pipeline, name: str, ledger: Ledger) -> StepContext:
+    """The context a step runs with (both engines)."""
     return StepContext(
-        step=spec.name,
+        step=name,
         label=pipeline.label,
         text=pipeline.text,
         ledger=ledger,
@@ -161,7 +162,7 @@ def apply_steps(
         if step_phase(spec.name) != phase:
             continue
         module = step_module(spec.name)
-        ctx = _context(pipeline, spec, ledger)
+        ctx = step_context(pipeline, spec.name, ledger)
         before = len(ledger)
         ledger_parts = ledger.frame().height
         rows_in = _height(data)

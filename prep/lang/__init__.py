@@ -21,7 +21,6 @@ The texts a backend gets and the answers it gives never leave this module except
 from __future__ import annotations
 
 import multiprocessing
-import os
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
 
@@ -97,10 +96,9 @@ _CHUNK_FUNCTIONS: dict[str, Callable[[Sequence[str]], list[str]]] = {
 
 def default_workers() -> int:
     """The cores this process may use."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # not on Linux
-        return max(1, os.cpu_count() or 1)
+    from prep.text import usable_cores
+
+    return usable_cores()
 
 
 def identify(texts: Sequence[str], backend: str = "cld2", workers: int | None = None) -> list[str]:
