@@ -8,6 +8,8 @@ import random
 
 import numpy as np
 import polars as pl
+from hypothesis import given, settings
+from hypothesis import strategies as st
 import pytest
 
 from prep.neardup import (
@@ -131,6 +133,43 @@ def test_normalise_texts():
     assert normalise_texts(frame, ["a", "b"]).to_list() == ["re scooter locked ünlock please", "x", ""]
     assert normalise_texts(frame, ["a"], "remove").to_list() == ["re scooter locked", "", ""]
     assert normalise_texts(frame, ["a"], "keep").to_list() == ["re: scooter locked!", "", ""]
+
+
+
+def _plain_compared(frame: pl.DataFrame, columns: list[str], punctuation: str) -> list[str]:
+    """normalise_texts as first written: one plain expression per stage (the definition)."""
+    text = pl.concat_str([pl.col(c) for c in columns], separator=" ", ignore_nulls=True).fill_null("").str.to_lowercase()
+    if punctuation != "keep":
+        text = text.str.replace_all(r"[\p{P}\p{S}]", " " if punctuation == "space" else "")
+    text = text.str.replace_all(r"\s+", " ").str.strip_chars(" ")
+    return frame.select(text).to_series().to_list()
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.text(alphabet=st.sampled_from(list("ab Z,.!-_$€\t\n\r\x0b\x0c\x85\xa0\u2003\u3000\u2028«»¿")), max_size=12), max_size=6))
+def test_normalise_texts_equals_plain_expressions(values):
+    # The match-only-where-it-changes rewrites against the plain expressions they replace.
+    frame = pl.DataFrame({"a": values, "b": list(reversed(values))}, schema={"a": pl.String, "b": pl.String})
+    for punctuation in ("space", "remove", "keep"):
+        assert normalise_texts(frame, ["a", "b"], punctuation).to_list() == _plain_compared(frame, ["a", "b"], punctuation)
+
+
+def test_normalise_texts_every_mark_and_space_in_slices():
+    # Every code point with the White_Space property or in a P*/S* category (Unicode character
+    # database via Python's unicodedata), each between letters and in runs, over enough rows that
+    # the table is cut into slices on threads (prep.text.PARALLEL_FROM_ROWS).
+    import sys
+    import unicodedata
+
+    from prep.text import PARALLEL_FROM_ROWS
+
+    marks = [chr(c) for c in range(sys.maxunicode + 1)
+             if unicodedata.category(chr(c))[0] in "PS" or chr(c).isspace()]
+    values = [f"x{m}y {m}{m} z{m}" for m in marks]
+    values = (values * (PARALLEL_FROM_ROWS // len(values) + 2))[: PARALLEL_FROM_ROWS + 7]
+    frame = pl.DataFrame({"a": values})
+    for punctuation in ("space", "remove", "keep"):
+        assert normalise_texts(frame, ["a"], punctuation).to_list() == _plain_compared(frame, ["a"], punctuation)
 
 
 # --- MinHash -------------------------------------------------------------------------------------
