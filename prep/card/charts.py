@@ -23,7 +23,7 @@ import re
 from dataclasses import dataclass
 from typing import Any
 
-from prep.card.document import SPLITS, cluster_sizes
+from prep.card.document import SPLITS, cluster_size_groups
 from prep.errors import PrepError
 
 #: Okabe and Ito's colour-blind safe palette ("Color Universal Design", 2002; values from memory).
@@ -260,19 +260,18 @@ def rows_removed(card: dict) -> ChartSVG | None:
 
 
 def duplicate_cluster_sizes(card: dict) -> ChartSVG | None:
-    sizes = cluster_sizes(card)
-    if not sizes:
+    groups = cluster_size_groups(card)
+    if not groups:
         return None
-    keys = sorted(sizes)
     fig = _figure(height=2.4)
     ax = fig.subplots()
-    x = list(range(len(keys)))
-    exact = [sizes[k][0] for k in keys]
-    near = [sizes[k][1] for k in keys]
+    x = list(range(len(groups)))
+    exact = [g[3] for g in groups]
+    near = [g[4] for g in groups]
     width = 0.4
     ax.bar([i - width / 2 for i in x], exact, width, color=PALETTE[0], label="exact duplicates")
     ax.bar([i + width / 2 for i in x], near, width, color=PALETTE[1], label="near duplicates")
-    ax.set_xticks(x, labels=[str(k) for k in keys])
+    ax.set_xticks(x, labels=[g[0] for g in groups], rotation=30 if len(groups) > 8 else 0)
     ax.set_xlabel("rows in the cluster")
     ax.set_ylabel("clusters")
     if max(exact + near) > 50 * max(1, min(v for v in exact + near if v > 0)):
@@ -280,7 +279,7 @@ def duplicate_cluster_sizes(card: dict) -> ChartSVG | None:
     ax.legend(frameon=False, fontsize=8)
     _margins(fig, left=0.75, top=0.15)
     alt = (
-        f"Bar chart of duplicate clusters by size, from {keys[0]} to {keys[-1]} rows: "
+        f"Bar chart of duplicate clusters by size, from {groups[0][1]} to {groups[-1][2]} rows: "
         f"{sum(exact)} exact-duplicate clusters and {sum(near)} near-duplicate clusters. "
         "The table below gives the counts."
     )

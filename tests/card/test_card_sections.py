@@ -194,3 +194,20 @@ def test_pipeline_without_any_optional_step_validates(make_facts):
     card = build_card(only_split)
     assert schema_errors(card) == []
     assert card["label_merges"] == {"status": "not run"}
+
+
+def test_cluster_sizes_grouped_into_ranges_keep_every_cluster():
+    # Many distinct sizes: 2..5 one by one, then 1-2-5 ranges; every cluster counted exactly once.
+    from prep.card.document import MAX_SINGLE_SIZES, cluster_size_groups
+
+    exact = [{"size": s, "clusters": s % 7 + 1} for s in range(2, 40)]
+    near = [{"size": s, "clusters": 1} for s in (2, 3, 11, 20, 21, 999, 1000, 1001, 6965)]
+    card = {"exact_duplicates": {"cluster_sizes": exact}, "near_duplicates": {"cluster_sizes": near}}
+    groups = cluster_size_groups(card)
+    assert [g[0] for g in groups] == ["2", "3", "4", "5", "6-10", "11-20", "21-50", "501-1,000", "1,001-2,000", "5,001-10,000"]
+    assert sum(g[3] for g in groups) == sum(e["clusters"] for e in exact)
+    assert sum(g[4] for g in groups) == sum(e["clusters"] for e in near)
+    assert (groups[0][1], groups[-1][2]) == (2, 6965)
+    # Few sizes: one row per size, as before.
+    few = {"exact_duplicates": {"cluster_sizes": exact[:MAX_SINGLE_SIZES]}}
+    assert [g[0] for g in cluster_size_groups(few)] == [str(s) for s in range(2, 2 + MAX_SINGLE_SIZES)]
