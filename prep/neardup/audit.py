@@ -3,9 +3,12 @@
 Run by the runner on the final splits, independently of the ``near_duplicates`` step (and also
 when the pipeline has no such step), with the step's settings when it has one. Counts only.
 
-The search reuses the band keys the step computed for the same texts (a lookup by text; the
-result is the same as signing them again) and verifies only candidate pairs whose texts lie in
-two different splits, so after the step it costs a fraction of a second search.
+When the step searched every text of the splits just before (the usual case: the splits hold
+what the step kept), the audit takes the step's verified pairs between these texts (a lookup by
+text; exactly the pairs a fresh search would verify, see :class:`prep.neardup.search._KeyMemo`).
+Otherwise it reuses the band keys of the texts the step signed, signs the rest and verifies only
+candidate pairs whose texts lie in two different splits. Measured on a million-row run: 25 s for
+the audit's search before the lookup.
 
 Pairs are counted exactly over rows: k identical copies of a text in train and one in test are
 k pairs. A validation row leaks when some train row is a near duplicate of it (or identical);

@@ -85,18 +85,29 @@ def pair_similarity(
 
 
 class _KeyMemo:
-    """The band keys and set sketches of the last LSH search, by text: the runner's leakage audit
-    searches the texts that the step just searched (minus the rows it set aside), and both are a
-    pure function of the text and the settings, so the audit looks them up instead of signing every
-    text again. A lookup gives exactly what signing would give; only one search is kept."""
+    """The band keys, set sketches and verified pairs of the last LSH search, by text: the runner's
+    leakage audit searches the texts that the step just searched (minus the rows it set aside), and
+    all three are a pure function of the texts and the settings, so the audit looks them up instead
+    of signing and verifying every text again. A lookup gives exactly what the search would give:
+    keys and sketches are per text; two texts are a candidate pair exactly when they share a band
+    key (every pair of every bucket is examined, whatever else is in it), the bounds and the exact
+    similarity depend on the pair alone, so the verified pairs among a subset of the stored texts
+    are the stored verified pairs between members of that subset. Only one search is kept."""
 
     def __init__(self) -> None:
         self.params: tuple | None = None
         self.texts: pl.Series | None = None
         self.signed: _Signed | None = None
+        self.pair_params: tuple | None = None
+        self.pairs: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
     def store(self, params: tuple, texts: pl.Series, signed: _Signed) -> None:
         self.params, self.texts, self.signed = params, texts, signed
+        self.pair_params = self.pairs = None
+
+    def store_pairs(self, pair_params: tuple, i: np.ndarray, j: np.ndarray, similarity: np.ndarray) -> None:
+        """The verified pairs (positions in the stored texts) of a search of all the stored texts."""
+        self.pair_params, self.pairs = pair_params, (i, j, similarity)
 
     def clear(self) -> None:
         self.__init__()
@@ -108,6 +119,24 @@ class _KeyMemo:
         stored = pl.DataFrame({"t": self.texts}).with_row_index("k").unique("t", keep="first", maintain_order=True)
         hit = pl.DataFrame({"t": texts}).join(stored, on="t", how="left", maintain_order="left")
         return hit.get_column("k").fill_null(-1).cast(pl.Int64).to_numpy()
+
+    def pairs_among(self, pair_params: tuple, texts: pl.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """(i, j, similarity), i < j positions in ``texts`` (distinct texts), sorted: the stored
+        verified pairs between two of ``texts``; None unless every text is stored with these settings."""
+        if self.pairs is None or self.pair_params != pair_params:
+            return None
+        at = self.lookup(pair_params[0], texts)
+        if at.size and at.min() < 0:
+            return None
+        where = np.full(self.texts.len(), -1, dtype=np.int64)
+        where[at] = np.arange(at.size, dtype=np.int64)
+        si, sj, ss = self.pairs
+        a, b = where[si], where[sj]
+        both = (a >= 0) & (b >= 0)
+        a, b, ss = a[both], b[both], ss[both]
+        i, j = np.minimum(a, b), np.maximum(a, b)
+        order = np.lexsort((j, i))
+        return i[order], j[order], ss[order]
 
 
 @dataclass
@@ -154,7 +183,7 @@ def _band_keys(
     from prep.neardup import kernels
 
     m = texts.len()
-    params = (settings.shingles, settings.shingle_n, settings.permutations, bands, rows)
+    params = _key_params(settings, bands, rows)
     signed = _Signed.empty(m, bands)
     known = _MEMO.lookup(params, texts) if reuse else np.full(m, -1, dtype=np.int64)
     have = known >= 0
@@ -171,6 +200,16 @@ def _band_keys(
     if remember:
         _MEMO.store(params, texts, signed)
     return signed
+
+
+def _key_params(settings: Settings, bands: int, rows: int) -> tuple:
+    """What band keys and sketches depend on, besides the text."""
+    return (settings.shingles, settings.shingle_n, settings.permutations, bands, rows)
+
+
+def _pair_params(settings: Settings, bands: int, rows: int) -> tuple:
+    """What the verified pairs depend on, besides the texts (key parameters first)."""
+    return (_key_params(settings, bands, rows), settings.threshold, settings.similarity)
 
 
 def _threads() -> int:
@@ -289,20 +328,34 @@ def find(
         bands, rows, p_at = lsh.choose_bands(
             settings.threshold, settings.permutations, settings.target_recall, bands=settings.bands, rows=settings.rows
         )
-        signed = _band_keys(rep_texts, settings, bands, rows, reuse=reuse_keys, remember=remember_keys)
-        # Candidates whose exact bounds already rule them out are not verified (same result).
-        bound = settings.threshold if settings.similarity == "jaccard" else 0.0
-        ci, cj, n_candidates, large = _lsh_candidates(signed, bound)
-        del signed
-        if pair_filter is not None:
-            wanted = pair_filter(reps[ci], reps[cj])
-            ci, cj = ci[wanted], cj[wanted]
-        sim = pair_similarity(rep_texts, ci, cj, settings, at_least=settings.threshold)
         facts.update(
-            permutations=settings.permutations, bands=bands, rows=rows,
-            expected_recall_at_threshold=round(p_at, 6), candidates=n_candidates, large_buckets=large,
-            exactly_verified=int(ci.size),  # candidates left by the bounds (and the pair filter)
+            permutations=settings.permutations, bands=bands, rows=rows, expected_recall_at_threshold=round(p_at, 6)
         )
+        pair_params = _pair_params(settings, bands, rows)
+        known = _MEMO.pairs_among(pair_params, rep_texts) if reuse_keys else None
+        if known is not None:  # every text was in the remembered search: its verified pairs
+            ci, cj, sim = known
+            if pair_filter is not None:
+                wanted = pair_filter(reps[ci], reps[cj])
+                ci, cj, sim = ci[wanted], cj[wanted], sim[wanted]
+            facts["pairs_from_remembered_search"] = True
+        else:
+            signed = _band_keys(rep_texts, settings, bands, rows, reuse=reuse_keys, remember=remember_keys)
+            # Candidates whose exact bounds already rule them out are not verified (same result).
+            bound = settings.threshold if settings.similarity == "jaccard" else 0.0
+            ci, cj, n_candidates, large = _lsh_candidates(signed, bound)
+            del signed
+            if pair_filter is not None:
+                wanted = pair_filter(reps[ci], reps[cj])
+                ci, cj = ci[wanted], cj[wanted]
+            sim = pair_similarity(rep_texts, ci, cj, settings, at_least=settings.threshold)
+            facts.update(
+                candidates=n_candidates, large_buckets=large,
+                exactly_verified=int(ci.size),  # candidates left by the bounds (and the pair filter)
+            )
+            if remember_keys and pair_filter is None:
+                kept = sim >= settings.threshold
+                _MEMO.store_pairs(pair_params, ci[kept], cj[kept], sim[kept])
     ok = sim >= settings.threshold
     i = reps[ci[ok]]
     j = reps[cj[ok]]

@@ -131,6 +131,47 @@ def test_audit_gives_the_same_counts_with_and_without_the_remembered_keys():
     assert leakage_audit(splits, ["title"], Settings()) == fresh
 
 
+
+def test_pairs_among_a_subset_of_a_remembered_search_equal_a_fresh_search(monkeypatch):
+    # The audit's texts are the step's texts minus the rows it set aside: the verified pairs are
+    # then looked up, not searched. The reference is a fresh search of the subset.
+    rng = random.Random(5)
+    words = "scooter bike dock unlock refund charge app map battery brake station ride helmet".split()
+    base = [" ".join(rng.choice(words) for _ in range(12)) for _ in range(400)]
+    texts = base + [t + " thanks" for t in base[:150]] + [t.replace("bike", "bikes") for t in base[:150]]
+    step_texts = pl.Series("t", texts).unique(maintain_order=True)
+    subset = step_texts.sample(fraction=0.6, seed=3, shuffle=True)
+    settings = Settings(threshold=0.75)
+
+    def keep_some(i, j):
+        return (i + j) % 3 != 0
+
+    search.forget_keys()
+    fresh = find(subset, settings)
+    fresh_filtered = find(subset, settings, pair_filter=keep_some)
+    assert fresh.i.size > 20
+    find(step_texts, settings, remember_keys=True)
+
+    def no_search(*args, **kwargs):
+        raise AssertionError("searched again")
+
+    with monkeypatch.context() as m:
+        m.setattr(search, "_lsh_candidates", no_search)
+        looked_up = find(subset, settings, reuse_keys=True)
+        looked_up_filtered = find(subset, settings, reuse_keys=True, pair_filter=keep_some)
+    for a, b in ((fresh, looked_up), (fresh_filtered, looked_up_filtered)):
+        assert np.array_equal(a.i, b.i) and np.array_equal(a.j, b.j)
+        assert np.array_equal(a.similarity, b.similarity) and np.array_equal(a.cluster, b.cluster)
+    # A text the remembered search did not see, or other settings: searched, not looked up.
+    for other, other_settings in ((pl.concat([subset, pl.Series("t", ["a text never seen before here"])]), settings),
+                                  (subset, Settings(threshold=0.7))):
+        with monkeypatch.context() as m:
+            m.setattr(search, "_lsh_candidates", no_search)
+            with pytest.raises(AssertionError, match="searched again"):
+                find(other, other_settings, reuse_keys=True)
+    search.forget_keys()
+
+
 def _random_sets(seed: int, m: int, subset: float = 0.8) -> tuple[Shingled, list[set[int]]]:
     """m fingerprint sets: variants of a few base sets with some elements swapped for fresh ones (so
     that pairs fall on both sides of every threshold), repeats inside a text, a few empty sets, and
