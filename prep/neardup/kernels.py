@@ -304,8 +304,18 @@ def _need_by_sum(total, threshold):
     return out
 
 
+def key_bytes(keys: np.ndarray) -> np.ndarray:
+    """The top byte of each band key (texts x bands), eight bands to a little-endian uint64 word
+    (byte e of word w is band 8w + e; padding bytes are zero and never read by
+    :func:`filtered_pairs`): uint64 (texts x ceil(bands / 8))."""
+    m, bands = keys.shape
+    packed = np.zeros((m, 8 * ((bands + 7) // 8)), dtype=np.uint8)
+    packed[:, :bands] = (keys >> np.uint64(56)).astype(np.uint8)
+    return np.ascontiguousarray(packed).view("<u8")
+
+
 @njit(cache=True, nogil=True)
-def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, sizes, sketch, excess, threshold, lo, hi):
+def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, key_bytes, sizes, sketch, excess, threshold, lo, hi):
     """The LSH candidate pairs of buckets lo..hi-1 that may reach ``threshold``: (i, j, candidates).
 
     Bucket q holds ``members[bucket_start[q]:bucket_start[q] + bucket_size[q]]`` (row indices) of band
@@ -317,8 +327,16 @@ def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, sizes,
     SKETCH_BUCKETS; every common element lies in the same bucket of both sets). A pair returned
     still needs its exact Jaccard; a pair dropped cannot reach the threshold.
 
-    Each bucket's keys, sizes and sketches are first copied into contiguous scratch arrays, so the
-    (size x size) pair loop reads from cache, not from rows scattered over the whole input."""
+    Whether a pair shares an earlier band is first tested on one byte of each band key
+    (``key_bytes``, see :func:`key_bytes`): different bytes prove different keys, eight bands per
+    word operation; only when some byte matches are the keys themselves compared. The sketch bound
+    stops adding as soon as it reaches the needed intersection; that early exit also keeps the
+    compiler from turning the 16-word loop into vector code with a horizontal sum, which measured
+    about twice as slow per pair here. (Measured on a quarter of the 997M bucket pairs of 1M demo
+    tickets, one thread: 11.1 s before both changes, 6.9 s after; the same pairs and counts.)
+
+    Each bucket's keys, key bytes, sizes and sketches are first copied into contiguous scratch
+    arrays, so the (size x size) pair loop reads from cache, not from rows scattered over the input."""
     cap = 1024
     out_i = np.empty(cap, dtype=np.int64)
     out_j = np.empty(cap, dtype=np.int64)
@@ -329,11 +347,15 @@ def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, sizes,
     for t in range(sizes.size):
         max_size = max(max_size, sizes[t])
     need_by_sum = _need_by_sum(2 * max_size, threshold)
+    n_words = key_bytes.shape[1]
     room = 0
     l_keys = np.empty((room, n_bands), dtype=np.uint64)
+    l_bytes = np.empty((room, n_words), dtype=np.uint64)
     l_sketch = np.empty((room, SKETCH_WORDS), dtype=np.uint64)
     l_size = np.empty(room, dtype=np.int64)
     l_excess = np.empty(room, dtype=np.int64)
+    ones = uint64(0x0101010101010101)
+    highs = uint64(0x8080808080808080)
     for q in range(lo, hi):
         band = bucket_band[q]
         s0 = bucket_start[q]
@@ -341,13 +363,22 @@ def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, sizes,
         if c > room:
             room = max(c, 2 * room, 64)
             l_keys = np.empty((room, n_bands), dtype=np.uint64)
+            l_bytes = np.empty((room, n_words), dtype=np.uint64)
             l_sketch = np.empty((room, SKETCH_WORDS), dtype=np.uint64)
             l_size = np.empty(room, dtype=np.int64)
             l_excess = np.empty(room, dtype=np.int64)
+        # Words holding the bytes of bands 0..band-1; in the last one, the bytes of later bands are
+        # forced to 0xFF in the xor (never zero: never a match).
+        used_words = (band + 7) // 8
+        last_fill = uint64(0)
+        if band % 8 != 0:
+            last_fill = ~((uint64(1) << uint64(8 * (band % 8))) - uint64(1))
         for x in range(c):
             a = members[s0 + x]
             for e in range(band):
                 l_keys[x, e] = keys[a, e]
+            for w in range(used_words):
+                l_bytes[x, w] = key_bytes[a, w]
             for w in range(SKETCH_WORDS):
                 l_sketch[x, w] = sketch[a, w]
             l_size[x] = sizes[a]
@@ -356,13 +387,22 @@ def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, sizes,
             na = l_size[x]
             ea = l_excess[x]
             for y in range(x + 1, c):
-                hit = False
-                for e in range(band):
-                    if l_keys[x, e] == l_keys[y, e]:
-                        hit = True
+                maybe = False
+                for w in range(used_words):
+                    v = l_bytes[x, w] ^ l_bytes[y, w]
+                    if w == used_words - 1:
+                        v |= last_fill
+                    if ((v - ones) & ~v & highs) != uint64(0):  # some byte of v is zero
+                        maybe = True
                         break
-                if hit:
-                    continue
+                if maybe:
+                    hit = False
+                    for e in range(band):
+                        if l_keys[x, e] == l_keys[y, e]:
+                            hit = True
+                            break
+                    if hit:
+                        continue
                 n_cand += 1
                 nb = l_size[y]
                 need = need_by_sum[na + nb]
@@ -371,6 +411,8 @@ def filtered_pairs(members, bucket_start, bucket_size, bucket_band, keys, sizes,
                 bound = min(ea, l_excess[y])
                 for w in range(SKETCH_WORDS):
                     bound += np.int64(_popcount(l_sketch[x, w] & l_sketch[y, w]))
+                    if bound >= need:  # enough: the pair passes (see the docstring)
+                        break
                 if bound < need:
                     continue
                 if n_out == cap:

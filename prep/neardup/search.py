@@ -264,10 +264,11 @@ def _lsh_candidates(signed: _Signed, threshold: float) -> tuple[np.ndarray, np.n
     cuts = np.searchsorted(work, np.linspace(0, work[-1], n_items + 1)[1:-1], side="right")
     bounds = np.unique(np.concatenate([[0], cuts, [sizes.size]]))
     keys = np.ascontiguousarray(signed.keys)
+    key_bytes = kernels.key_bytes(keys)
 
     def run(item: int):
         return kernels.filtered_pairs(
-            members, starts, sizes, bands, keys, signed.sizes, signed.sketch, signed.excess,
+            members, starts, sizes, bands, keys, key_bytes, signed.sizes, signed.sketch, signed.excess,
             float(threshold), int(bounds[item]), int(bounds[item + 1]),
         )
 

@@ -226,8 +226,8 @@ def test_set_sketches_equal_python_sets():
             assert by_buckets[a, b] >= len(sets[a] & sets[b])
 
 
-@pytest.mark.parametrize("threshold", [0.3, 0.6, 0.8])
-def test_filtered_candidates_equal_brute_force(threshold):
+@pytest.mark.parametrize("threshold,bands", [(0.3, 4), (0.6, 4), (0.8, 4), (0.6, 21), (0.8, 9)])
+def test_filtered_candidates_equal_brute_force(threshold, bands):
     # Reference: brute force over all pairs. The candidates are the pairs sharing a key in at least
     # one band (a bucket far larger than any other included); every candidate whose exact Jaccard
     # (Python sets) reaches the threshold must come out, nothing else than candidates may, and the
@@ -235,9 +235,14 @@ def test_filtered_candidates_equal_brute_force(threshold):
     sh, sets = _random_sets(int(threshold * 10), 300, threshold)
     from prep.neardup import kernels
 
-    m, bands = len(sets), 4
+    m = len(sets)
     rng = np.random.default_rng(5)
     keys = rng.integers(0, 90, size=(m, bands)).astype(np.uint64)
+    if bands > 8:
+        # Keys over the whole 64 bits, whose top bytes (the kernel's first test) often agree
+        # while the keys differ: both branches of the byte test are taken.
+        keys |= rng.integers(0, 3, size=(m, bands)).astype(np.uint64) << np.uint64(56)
+        keys += rng.integers(0, 2, size=(m, bands)).astype(np.uint64) << np.uint64(40)
     keys[rng.choice(m, size=lsh.MAX_BUCKET_ALL_PAIRS + 30, replace=False), 2] = np.uint64(10**6)  # one large bucket
     sizes, sketch, excess = kernels.set_sketches(sh.hashes, sh.offsets)
     signed = search._Signed(keys=keys, active=sizes > 0, sizes=sizes, sketch=sketch, excess=excess)
