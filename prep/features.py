@@ -41,11 +41,13 @@ _TEXTS_PER_ITEM = 256  # texts per parallel work item (each item zeroes one dens
 def char_classes() -> tuple[np.ndarray, np.ndarray]:
     """Two tables over all code points: ``\\w`` of Python's ``re`` (``str.isalnum()`` or ``_``) and
     ``str.isspace()``, the definitions scikit-learn's token pattern and ``str.split()`` use."""
-    chars = [chr(c) for c in range(MAX_CODE_POINT)]
-    word = np.fromiter((c.isalnum() for c in chars), dtype=np.bool_, count=MAX_CODE_POINT)
+    # Every code point as a one-character numpy string; numpy's string functions apply the same
+    # Unicode predicates as str.isalnum / str.isspace (tests/test_features.py checks them against
+    # the str methods over every code point), ten times faster than a Python loop.
+    chars = np.arange(MAX_CODE_POINT, dtype=np.uint32).view("<U1")
+    word = np.strings.isalnum(chars)
     word[ord("_")] = True
-    space = np.fromiter((c.isspace() for c in chars), dtype=np.bool_, count=MAX_CODE_POINT)
-    return word, space
+    return word, np.strings.isspace(chars)
 
 
 @njit(inline="always")

@@ -88,3 +88,16 @@ def test_order_and_threads_do_not_change_a_row():
     backward = _rows(hashed_counts(texts[::-1]))[::-1]
     assert forward == backward
     assert all(np.isfinite(v) for row in forward for v in row.values())
+
+
+def test_character_tables_equal_the_str_methods_on_every_code_point():
+    # Reference: Python's str.isalnum (plus "_": the \w of Python's re, which scikit-learn's token
+    # pattern uses) and str.isspace (str.split's separators), asked of every code point.
+    import sys
+
+    from prep.features import char_classes
+
+    word, space = char_classes()
+    chars = [chr(c) for c in range(sys.maxunicode + 1)]
+    assert word.tolist() == [c.isalnum() or c == "_" for c in chars]
+    assert space.tolist() == [c.isspace() for c in chars]
