@@ -63,7 +63,7 @@ def leakage_audit(
     try:
         found = find(
             per_text.get_column("t"), Settings(**{**settings.__dict__, "method": method}),
-            pair_filter=spans_two_splits, reuse_keys=True,  # band keys of texts the step just signed
+            pair_filter=spans_two_splits, reuse_keys=True, reuse_pairs=True,  # what the step just found
         )
     finally:
         forget_keys()

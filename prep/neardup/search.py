@@ -212,6 +212,35 @@ def _pair_params(settings: Settings, bands: int, rows: int) -> tuple:
     return (_key_params(settings, bands, rows), settings.threshold, settings.similarity)
 
 
+def sign(texts: pl.Series, settings: Settings) -> tuple[tuple, pl.Series, _Signed]:
+    """(key parameters, distinct non-empty texts, their band keys and sketches) of normalised
+    ``texts``: what an LSH search with ``settings`` computes for them. The Dask engine runs this on
+    each partition on the workers and hands the results to :func:`remember_signed` on the client,
+    so the search there looks the keys up instead of signing (the shingling and MinHash work is
+    row-local; only band keys, sizes and sketches travel)."""
+    bands, rows, _ = lsh.choose_bands(
+        settings.threshold, settings.permutations, settings.target_recall, bands=settings.bands, rows=settings.rows
+    )
+    distinct = texts.fill_null("").unique(maintain_order=True)
+    distinct = distinct.filter(distinct.str.len_bytes() > 0)
+    return _key_params(settings, bands, rows), distinct, _band_keys(distinct, settings, bands, rows)
+
+
+def remember_signed(parts: list[tuple[tuple, pl.Series, _Signed]]) -> None:
+    """Remember the results of :func:`sign` (all with the same settings) for the next search with
+    ``reuse_keys``; texts signed in several parts are looked up in the first."""
+    if not parts or any(p[0] != parts[0][0] for p in parts):
+        return
+    texts = pl.concat([p[1] for p in parts]) if len(parts) > 1 else parts[0][1]
+    bands = parts[0][2].keys.shape[1]
+    signed = _Signed.empty(texts.len(), bands)
+    at = 0
+    for _, part_texts, part_signed in parts:
+        signed.put(slice(at, at + part_texts.len()), part_signed)
+        at += part_texts.len()
+    _MEMO.store(parts[0][0], texts, signed)
+
+
 def _threads() -> int:
     import numba
 
@@ -292,13 +321,16 @@ def find(
     *,
     pair_filter: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
     reuse_keys: bool = False,
+    reuse_pairs: bool = False,
     remember_keys: bool = False,
 ) -> Found:
     """Near-duplicate pairs and clusters among normalised ``texts`` (see the module docstring).
 
     ``pair_filter(i, j)`` (row indices) -> bool mask: LSH candidates it rejects are not verified
     (the audit needs only pairs across splits). ``remember_keys`` keeps this search's band keys
-    for a later ``reuse_keys`` search (see :class:`_KeyMemo`); results are the same either way."""
+    and verified pairs for a later search: ``reuse_keys`` looks up the keys of texts remembered
+    (by this or by :func:`remember_signed`), ``reuse_pairs`` takes the verified pairs when every
+    text was in the remembered search (see :class:`_KeyMemo`); results are the same either way."""
     n_rows = texts.len()
     texts = texts.fill_null("")
     # 1. Identical texts: representative = first row of each distinct non-empty text.
@@ -333,7 +365,7 @@ def find(
             permutations=settings.permutations, bands=bands, rows=rows, expected_recall_at_threshold=round(p_at, 6)
         )
         pair_params = _pair_params(settings, bands, rows)
-        known = _MEMO.pairs_among(pair_params, rep_texts) if reuse_keys else None
+        known = _MEMO.pairs_among(pair_params, rep_texts) if reuse_pairs else None
         if known is not None:  # every text was in the remembered search: its verified pairs
             ci, cj, sim = known
             if pair_filter is not None:

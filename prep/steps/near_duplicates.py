@@ -120,6 +120,19 @@ def _preference(table: pl.DataFrame, texts: pl.Series, config: Config) -> np.nda
     return pref
 
 
+
+def sign_ahead(part: pl.DataFrame, config: Config, text_columns: list[str]) -> tuple | None:
+    """The band keys and sketches of a partition's compared texts (:func:`prep.neardup.search.sign`),
+    for an engine that signs on its workers before the table reaches this step (the step then looks
+    them up: the same result). None when there is nothing to sign ahead (exhaustive method, or a
+    compared column not in the partition yet)."""
+    from prep.neardup.search import sign
+
+    columns = list(config.columns) if config.columns is not None else list(text_columns)
+    if config.method != "minhash_lsh" or any(c not in part.columns for c in columns):
+        return None
+    return sign(normalise_texts(part, columns, config.punctuation), config.settings())
+
 def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame:
     """Mark near-duplicate clusters and set aside all but one row of each; see the module docstring."""
     columns = list(config.columns) if config.columns is not None else list(ctx.text)
@@ -135,7 +148,9 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
 
     texts = normalise_texts(table, columns, config.punctuation)
     settings = config.settings()
-    found = find(texts, settings, remember_keys=True)  # the runner's audit reuses the band keys
+    # Band keys signed ahead (the Dask engine signs on the workers) are looked up; the runner's
+    # audit then reuses this search's keys and pairs.
+    found = find(texts, settings, reuse_keys=True, remember_keys=True)
     cluster = found.cluster
     in_cluster = cluster >= 0
 

@@ -181,8 +181,8 @@ def test_pairs_among_a_subset_of_a_remembered_search_equal_a_fresh_search(monkey
 
     with monkeypatch.context() as m:
         m.setattr(search, "_lsh_candidates", no_search)
-        looked_up = find(subset, settings, reuse_keys=True)
-        looked_up_filtered = find(subset, settings, reuse_keys=True, pair_filter=keep_some)
+        looked_up = find(subset, settings, reuse_keys=True, reuse_pairs=True)
+        looked_up_filtered = find(subset, settings, reuse_keys=True, reuse_pairs=True, pair_filter=keep_some)
     for a, b in ((fresh, looked_up), (fresh_filtered, looked_up_filtered)):
         assert np.array_equal(a.i, b.i) and np.array_equal(a.j, b.j)
         assert np.array_equal(a.similarity, b.similarity) and np.array_equal(a.cluster, b.cluster)
@@ -192,7 +192,7 @@ def test_pairs_among_a_subset_of_a_remembered_search_equal_a_fresh_search(monkey
         with monkeypatch.context() as m:
             m.setattr(search, "_lsh_candidates", no_search)
             with pytest.raises(AssertionError, match="searched again"):
-                find(other, other_settings, reuse_keys=True)
+                find(other, other_settings, reuse_keys=True, reuse_pairs=True)
     search.forget_keys()
 
 
@@ -327,3 +327,31 @@ def test_search_verifies_the_same_pairs_as_verifying_every_candidate(threshold):
     assert found.facts["large_buckets"] >= (1 if threshold == 0.5 else 0)
     assert np.array_equal(found.i, ci[ok]) and np.array_equal(found.j, cj[ok])
     assert np.array_equal(found.similarity, sim[ok])
+
+
+def test_search_with_keys_signed_ahead_in_parts_equals_a_fresh_search(monkeypatch):
+    # The Dask engine signs each partition on a worker (search.sign) and the client remembers the
+    # parts (search.remember_signed): the step's search must then sign nothing and find exactly
+    # what a fresh search finds. Parts overlap (a text in two partitions) and hold empty texts.
+    from prep.neardup import minhash
+
+    rng = random.Random(9)
+    words = "scooter bike dock unlock refund charge app map battery brake station ride helmet".split()
+    base = [" ".join(rng.choice(words) for _ in range(10)) for _ in range(250)]
+    texts = pl.Series("t", base + [t + " please" for t in base[:90]] + ["", base[3]])
+    settings = Settings(threshold=0.7)
+    search.forget_keys()
+    fresh = find(texts, settings)
+    parts = [search.sign(texts.slice(a, 140), settings) for a in range(0, texts.len(), 120)]
+    search.remember_signed(parts)
+
+    def no_signing(*args, **kwargs):
+        raise AssertionError("signed again")
+
+    with monkeypatch.context() as m:
+        m.setattr(minhash, "signatures", no_signing)
+        ahead = find(texts, settings, reuse_keys=True, remember_keys=True)
+    for name in ("i", "j", "similarity", "cluster"):
+        assert np.array_equal(getattr(fresh, name), getattr(ahead, name))
+    assert fresh.facts == ahead.facts
+    search.forget_keys()
