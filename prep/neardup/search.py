@@ -258,27 +258,43 @@ def _lsh_candidates(signed: _Signed, threshold: float) -> tuple[np.ndarray, np.n
     from prep.neardup import kernels
 
     ids = np.flatnonzero(signed.active)
-    member_parts, start_parts, size_parts, band_parts = [], [], [], []
-    offset = 0
-    for band in range(signed.keys.shape[1]):  # one iteration per band
+
+    def buckets(band: int) -> tuple[np.ndarray, np.ndarray] | None:
+        """(members, bucket starts) of the band's buckets of two or more texts, by key."""
         k = signed.keys[ids, band]
         order = np.argsort(k)
         k = k[order]
         dup = k[1:] == k[:-1]
         if not dup.any():
-            continue
+            return None
         in_bucket = np.zeros(k.size, dtype=bool)
         in_bucket[1:] = dup
         in_bucket[:-1] |= dup
         k = k[in_bucket]
-        member_parts.append(ids[order[in_bucket]])
         new = np.ones(k.size, dtype=bool)
         new[1:] = k[1:] != k[:-1]
-        starts = np.flatnonzero(new)
+        return ids[order[in_bucket]], np.flatnonzero(new)
+
+    n_bands = signed.keys.shape[1]
+    if _threads() > 1 and ids.size >= 50_000:  # numpy's sort releases the GIL: bands on threads
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=_threads()) as pool:
+            per_band = list(pool.map(buckets, range(n_bands)))
+    else:
+        per_band = [buckets(band) for band in range(n_bands)]
+    member_parts, start_parts, size_parts, band_parts = [], [], [], []
+    offset = 0
+    for band, found in enumerate(per_band):  # one iteration per band
+        if found is None:
+            continue
+        members, starts = found
+        member_parts.append(members)
         start_parts.append(starts + offset)
-        size_parts.append(np.diff(np.append(starts, k.size)))
+        size_parts.append(np.diff(np.append(starts, members.size)))
         band_parts.append(np.full(starts.size, band, dtype=np.int64))
-        offset += k.size
+        offset += members.size
+    del per_band
     if not member_parts:
         empty = np.zeros(0, dtype=np.int64)
         return empty, empty, 0, 0
