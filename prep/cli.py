@@ -67,6 +67,27 @@ class _Printer:
 debug_option = click.option("--debug", is_flag=True, help="Show the full traceback and cause of an error.")
 
 
+class _PathOrUrl(click.Path):
+    """A local path (checked and converted as click.Path does) or an fsspec URL, kept as the string given."""
+
+    def convert(self, value: Any, param: Any, ctx: Any) -> Any:
+        from prep.read.urls import is_url
+
+        return value if is_url(value) else super().convert(value, param, ctx)
+
+
+def _local_only(value: Any, command: str, debug: bool) -> Path:
+    """`prep clusters`, `card` and `compare` read and write local folders only: one line for a URL."""
+    from prep.read.urls import is_url, shown_url
+
+    if is_url(value):
+        _fail(PipelineError(
+            f"`prep {command}` works on a local output folder only, not on `{shown_url(value)}`; "
+            "copy the folder to this machine first (e.g. with your storage's own command-line tool)."
+        ), debug, 2)
+    return value
+
+
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="prep")
 def cli() -> None:
@@ -79,7 +100,8 @@ def cli() -> None:
 
 @cli.command()
 @click.argument("pipeline", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), help="Output folder (overrides `output` in the pipeline file).")
+@click.option("--out", "out", type=_PathOrUrl(file_okay=False, path_type=Path),
+              help="Output folder or fsspec URL such as s3://bucket/out (overrides `output` in the pipeline file).")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the final accounting line.")
 @click.option(
     "--force",
@@ -145,7 +167,7 @@ def check(pipeline: Path, debug: bool) -> None:
 
 
 @cli.command()
-@click.argument("output_dir", type=click.Path(file_okay=False, path_type=Path))
+@click.argument("output_dir", type=_PathOrUrl(file_okay=False, path_type=Path))
 @click.option("--limit", default=10, show_default=True, type=click.IntRange(min=1), help="Clusters to show.")
 @click.option("--kind", type=click.Choice(["exact", "near"]), help="Only exact or only near-duplicate clusters.")
 @debug_option
@@ -157,12 +179,13 @@ def clusters(output_dir: Path, limit: int, kind: str | None, debug: bool) -> Non
     """
     from prep.inspect import cluster_lines
 
+    output_dir = _local_only(output_dir, "clusters", debug)
     for line in _guard(debug, cluster_lines, output_dir, limit=limit, kind=kind):
         click.echo(line)
 
 
 @cli.command()
-@click.argument("output_dir", type=click.Path(file_okay=False, path_type=Path))
+@click.argument("output_dir", type=_PathOrUrl(file_okay=False, path_type=Path))
 @debug_option
 def card(output_dir: Path, debug: bool) -> None:
     """Render card.md, card.html and croissant.json of OUTPUT_DIR again from its card.json.
@@ -172,14 +195,15 @@ def card(output_dir: Path, debug: bool) -> None:
     """
     from prep.card_command import render_again
 
+    output_dir = _local_only(output_dir, "card", debug)
     written = _guard(debug, render_again, output_dir)
     click.echo(f"{output_dir}: rendered {', '.join(written)} from card.json")
 
 
 @cli.command()
-@click.argument("old_output", type=click.Path(file_okay=False, path_type=Path))
-@click.argument("new_output", type=click.Path(file_okay=False, path_type=Path))
-@click.option("--out", "out", type=click.Path(file_okay=False, path_type=Path), default=Path("."), show_default=True,
+@click.argument("old_output", type=_PathOrUrl(file_okay=False, path_type=Path))
+@click.argument("new_output", type=_PathOrUrl(file_okay=False, path_type=Path))
+@click.option("--out", "out", type=_PathOrUrl(file_okay=False, path_type=Path), default=Path("."), show_default=True,
               help="Folder for compare.json and compare.html.")
 @debug_option
 def compare(old_output: Path, new_output: Path, out: Path, debug: bool) -> None:
@@ -191,6 +215,7 @@ def compare(old_output: Path, new_output: Path, out: Path, debug: bool) -> None:
     """
     from prep.compare import compare as compare_versions, summary_lines, write
 
+    old_output, new_output, out = (_local_only(v, "compare", debug) for v in (old_output, new_output, out))
     result = _guard(debug, compare_versions, old_output, new_output)
     for line in summary_lines(result):
         click.echo(line)

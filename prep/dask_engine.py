@@ -8,7 +8,8 @@ How a run is spread (what runs where, and what travels to the client):
 
 1. **Reading**: one task per source on a worker, with prep's own readers (so row numbering, line
    numbers and unreadable-record ledger entries are those of the local engine). The worker needs
-   the input file under the same absolute path (a shared filesystem). The source's table stays on
+   a local input file under the same absolute path (a shared filesystem); an input given as an
+   fsspec URL (``s3://…``) is opened by the worker itself (:mod:`prep.read.urls`). The source's table stays on
    the worker; the client receives its facts (counts, hash, size) and its unreadable-record ledger
    rows (provenance and line numbers, no cell values). The table is then cut into partitions of
    ``partition_rows`` rows (a partition never spans two sources).
@@ -58,6 +59,7 @@ import polars as pl
 from prep.config import to_plain
 from prep.errors import DataError, PipelineError, PrepError
 from prep.facts import SourceFacts, StepFacts
+from prep.read.urls import is_url
 from prep.ledger import Ledger
 from prep.pipeline import DEFAULT_PARTITION_ROWS, PROVENANCE_COLUMNS, Pipeline
 from prep.steps import step_module
@@ -133,7 +135,9 @@ def _read_task(pipeline: Pipeline, index: int) -> tuple[pl.DataFrame, dict[str, 
 
     source = pipeline.sources[index]
     with _as_worker_error():
-        if not source.path.is_file() or not os.access(source.path, os.R_OK):
+        if is_url(source.path):  # opened by this worker through fsspec: object storage needs no shared filesystem
+            _check_url_on_worker(source, index)
+        elif not source.path.is_file() or not os.access(source.path, os.R_OK):
             raise PipelineError(
                 f"input file `{source.path_text}` cannot be read on a Dask worker; every worker needs the inputs "
                 "under the same path (a shared filesystem).",
@@ -153,6 +157,24 @@ def _read_task(pipeline: Pipeline, index: int) -> tuple[pl.DataFrame, dict[str, 
             "seconds": time.perf_counter() - t0,
         }
     return frame, meta
+
+
+def _check_url_on_worker(source: Any, index: int) -> None:
+    """A URL source this worker cannot open (backend not installed here, file not visible): one line, exit 2."""
+    from prep.read import urls
+
+    try:
+        problem = urls.input_problem(source.path)
+    except urls.UrlProblem as exc:
+        problem, hint = exc.message, exc.hint
+    else:
+        hint = None
+    if problem:
+        raise PipelineError(
+            f"input `{source.path_text}` of source `{source.name}` cannot be read on a Dask worker: it {problem}.",
+            key=f"sources[{index}].path",
+            hint=hint,
+        )
 
 
 def _slice(frame: pl.DataFrame, offset: int, length: int) -> pl.DataFrame:
@@ -476,7 +498,7 @@ def run_pipeline_dask(
     remote_pipeline = dataclasses.replace(
         pipeline,
         path=pipeline.path.absolute(),
-        sources=tuple(dataclasses.replace(s, path=s.path.absolute()) for s in pipeline.sources),
+        sources=tuple(s if is_url(s.path) else dataclasses.replace(s, path=s.path.absolute()) for s in pipeline.sources),
     )
     stage = ["reading the sources"]
     with _client(scheduler, settings.workers) as client, _dask_failures(lambda: stage[0]):

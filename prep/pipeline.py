@@ -2,7 +2,9 @@
 
 A pipeline file is YAML, loaded without constructing arbitrary objects. Every error names the
 pipeline file, the key path (``sources[1].columns``) and the YAML line, and has exit code 2.
-Paths in the file are relative to the file's folder.
+Paths in the file are relative to the file's folder. A source ``path`` or the ``output`` may instead be
+an fsspec URL (``s3://bucket/key``, ``file://…``; :mod:`prep.read.urls`): it is kept as written (a
+string), and messages show it without user-info and query.
 """
 
 from __future__ import annotations
@@ -20,6 +22,7 @@ from ruamel.yaml.error import MarkedYAMLError, YAMLError
 
 from prep.config import ConfigError, ConfigValueError, build, line_of, to_plain
 from prep.errors import PipelineError
+from prep.read import urls
 from prep.steps import STEP_MODULES, step_module
 
 __all__ = ["Pipeline", "Source", "SplitSpec", "About", "StepSpec", "load_pipeline", "FORMATS", "PROVENANCE_COLUMNS"]
@@ -164,8 +167,8 @@ class _PipelineSpec:
 @dataclass(frozen=True)
 class Source:
     name: str
-    path: Path              # resolved
-    path_text: str          # as written in the pipeline file (used in messages)
+    path: Path | str        # resolved; or an fsspec URL as written (a str, may hold credentials: never shown)
+    path_text: str          # as written in the pipeline file (used in messages); a URL via urls.shown_url
     format: str
     compression: str | None
     encoding: str
@@ -193,7 +196,7 @@ class Pipeline:
     text: tuple[str, ...]
     steps: tuple[StepSpec, ...]
     split: SplitSpec
-    output: Path            # resolved relative to the pipeline file's folder
+    output: Path | str      # resolved relative to the pipeline file's folder; or an fsspec URL (a str)
     on_unreadable: str
     sha256: str
     canonical_columns: tuple[str, ...] = field(default=())
@@ -287,6 +290,20 @@ def _check_history(resolved: Path, written: str, fail, container: Any) -> None:
         )
 
 
+def _check_url_input(name: str, url: str, fail) -> None:
+    """A source given as a URL must be a file that this machine can reach (the client checks, as it does
+    for a local path); ``fail(message)`` makes the PipelineError."""
+    shown = urls.shown_url(url)
+    try:
+        problem = urls.input_problem(url)
+    except urls.UrlProblem as exc:
+        raise fail(f"source `{name}`: `{shown}` {exc.message}." + (f" {exc.hint}" if exc.hint else "")) from exc
+    if problem == "does not exist":
+        raise fail(f"source `{name}`: input file `{shown}` not found.")
+    if problem:
+        raise fail(f"source `{name}`: input `{shown}` {problem}.")
+
+
 def load_pipeline(path: str | Path) -> Pipeline:
     """Load, validate and resolve a pipeline file. Raises :class:`PipelineError` (exit 2)."""
     path = Path(path)
@@ -320,20 +337,24 @@ def load_pipeline(path: str | Path) -> Pipeline:
         if s.name in seen:
             raise fail(f"duplicate source name `{s.name}` (also used by sources[{seen[s.name]}]).", f"{key}.name", raw, "name")
         seen[s.name] = i
-        resolved = folder / s.path
-        unreachable = path_problem(resolved)
-        if unreachable:
-            raise fail(f"input file `{s.path}` {unreachable}.", f"{key}.path", raw, "path")
-        if not resolved.exists():
-            raise fail(f"input file `{s.path}` not found (paths are relative to the pipeline file).", f"{key}.path", raw, "path")
-        if resolved.is_dir():
-            raise fail(f"`{s.path}` is a directory; give the path of a file.", f"{key}.path", raw, "path")
-        fmt, compression = _format_of(s.path)
+        if urls.is_url(s.path):
+            resolved, path_text = s.path, urls.shown_url(s.path)
+            _check_url_input(s.name, s.path, lambda m: fail(m, f"{key}.path", raw, "path"))
+        else:
+            resolved, path_text = folder / s.path, s.path
+            unreachable = path_problem(resolved)
+            if unreachable:
+                raise fail(f"input file `{s.path}` {unreachable}.", f"{key}.path", raw, "path")
+            if not resolved.exists():
+                raise fail(f"input file `{s.path}` not found (paths are relative to the pipeline file).", f"{key}.path", raw, "path")
+            if resolved.is_dir():
+                raise fail(f"`{s.path}` is a directory; give the path of a file.", f"{key}.path", raw, "path")
+        fmt, compression = _format_of(urls.url_path(s.path) if urls.is_url(s.path) else s.path)
         if s.format is not None:
             fmt = s.format
         if fmt is None:
             raise fail(
-                f"cannot tell the format of `{s.path}` from its extension; add `format:` (one of {', '.join(FORMATS)}).",
+                f"cannot tell the format of `{path_text}` from its extension; add `format:` (one of {', '.join(FORMATS)}).",
                 f"{key}.path", raw, "path",
             )
         if compression == "gzip" and fmt == "parquet":
@@ -342,7 +363,7 @@ def load_pipeline(path: str | Path) -> Pipeline:
             raise fail("Parquet files carry their own encoding; remove `encoding`.", f"{key}.encoding", raw, "encoding")
         sources.append(
             Source(
-                name=s.name, path=resolved, path_text=s.path, format=fmt, compression=compression,
+                name=s.name, path=resolved, path_text=path_text, format=fmt, compression=compression,
                 encoding=s.encoding, encoding_fallback=s.encoding_fallback, delimiter=s.delimiter,
                 columns=dict(s.columns),
             )
@@ -372,6 +393,11 @@ def load_pipeline(path: str | Path) -> Pipeline:
         if value is not None and value not in canonical:
             raise fail(f"`{value}` is not a canonical column (known: {', '.join(canonical)}).", f"split.{key_name}", data["split"], key_name if key_name in data["split"] else None)
     split = dataclasses.replace(split, stratify=stratify)
+    if split.history is not None and urls.is_url(split.history):
+        raise fail(
+            f"the split history `{urls.shown_url(split.history)}` is a URL; it must be a local folder "
+            "(copy the previous version's output folder to this machine first).", "split.history", data["split"], "history",
+        )
     if split.history is not None:
         _check_history(folder / split.history, split.history, fail, data["split"])
 
@@ -400,7 +426,7 @@ def load_pipeline(path: str | Path) -> Pipeline:
             raise error(exc) from None
         steps.append(StepSpec(name=name, config=config, key=f"{key}.{name}", line=line))
 
-    output = folder / spec.output
+    output = spec.output if urls.is_url(spec.output) else folder / spec.output
     return Pipeline(
         path=path, dataset=spec.dataset, description=spec.description, about=spec.about or About(),
         sources=tuple(sources), label=spec.label, text=tuple(spec.text), steps=tuple(steps), split=split,

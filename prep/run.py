@@ -24,7 +24,7 @@ from prep.ledger import Ledger, Reason, check_accounting
 from prep.pipeline import PROVENANCE_COLUMNS, Pipeline, Source
 from prep.steps import step_module
 from prep.steps.base import StepContext
-from prep.write import OutputFolder, dumps_json, prepare_output, sha256_file
+from prep.write import OutputFolder, dumps_json, prepare_output
 
 SPLITS = ("train", "validation", "test")
 
@@ -85,16 +85,20 @@ def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger)
             .otherwise(pl.col("detail"))
         ).to_series()
         ledger.add(rows, step="read", reason=Reason.UNREADABLE, detail=detail)
+    from prep.read.rawbytes import digest
+    from prep.read.urls import facts_path, is_url
+
+    sha256, size = digest(source)  # a URL is read through fsspec (prep/read/urls.py)
     facts = SourceFacts(
         name=source.name,
-        path=source.path_text,
+        path=facts_path(source.path) if is_url(source.path) else source.path_text,
         format=source.format,
         compression=source.compression,
         encoding=result.encoding,
         rows_read=result.rows_read,
         rows_unreadable=bad.height,
-        sha256=sha256_file(source.path),
-        bytes=source.path.stat().st_size,
+        sha256=sha256,
+        bytes=size,
     )
     return frame, facts
 
@@ -210,6 +214,18 @@ def run_pipeline(
     ``engine`` (``local`` or ``dask``), ``scheduler`` and ``partition_rows`` override the pipeline
     file's ``engine`` setting; the Dask engine lives in :mod:`prep.dask_engine`.
     """
+    from prep.read.urls import is_url
+
+    if is_url(out if out is not None else pipeline.output):  # written locally, then uploaded (prep/write.py)
+        from prep.write import run_into_url
+
+        return run_into_url(
+            str(out if out is not None else pipeline.output),
+            lambda local, rep, frc: run_pipeline(
+                pipeline, out=local, report=rep, force=frc, engine=engine, scheduler=scheduler, partition_rows=partition_rows
+            ),
+            inputs=[s.path for s in pipeline.sources], report=report, force=force,
+        )
     settings = getattr(pipeline, "engine", None)
     if (engine or getattr(settings, "name", "local")) == "dask":
         from prep.dask_engine import run_pipeline_dask

@@ -18,6 +18,16 @@ Crash safety (a process killed at any instant, SIGKILL included):
 * a later run (:func:`clean_stale`) removes leftover folders of earlier runs, and only those: the
   name must match the pattern above for this ``out``, the process that made it must be gone, and the
   folder must hold the marker or a prep manifest. Nothing else is ever touched.
+
+An output given as an fsspec URL (``s3://bucket/out``; :func:`run_into_url`) cannot be swapped
+atomically: object stores have no rename of a folder. The run writes its whole output folder locally
+first (the steps above, into a temporary local folder), and only when it is complete uploads it
+(:class:`RemoteFolder`): the marker first, the previous ``manifest.json`` removed, the files, stale files
+of the previous output removed, ``manifest.json`` last, the marker removed. So a run that fails before
+the upload leaves the previous output exactly as it was, and a ``manifest.json`` at the URL means a
+complete output; a crash during the upload itself can leave a mix of old and new files without a
+manifest (readers check the manifest, and the next run may replace such a folder because it holds
+prep's marker). A ``file://`` URL is a local path and gets the local writer.
 """
 
 from __future__ import annotations
@@ -30,13 +40,16 @@ import os
 import re
 import shutil
 import sys
+import tempfile
 import uuid
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
 import polars as pl
 
-from prep.errors import OutputError
+from prep.errors import DataError, OutputError
+from prep.read import urls
 
 MANIFEST = "manifest.json"
 TOOL_NAME = "prep"
@@ -215,7 +228,7 @@ def check_output_folder(out: Path, inputs: list[Path], *, shown: str, force: boo
     if out.exists() and not out.is_dir():
         raise OutputError(f"The output path `{shown}` is a file, not a folder. {again}")
     out_abs = out.resolve()
-    for path in inputs:
+    for path in _local_inputs(inputs):
         if _inside(path.resolve(), out_abs):
             raise OutputError(
                 f"The output folder `{shown}` contains an input file; prep replaces its output folder on every run "
@@ -229,6 +242,19 @@ def check_output_folder(out: Path, inputs: list[Path], *, shown: str, force: boo
             "Choose an empty or new folder so that prep does not overwrite files it did not write, "
             "or pass --force to replace that folder and everything in it."
         )
+
+
+def _local_inputs(inputs: list[Any]) -> list[Path]:
+    """The local files among ``inputs`` (paths, ``file://`` URLs); other URLs cannot be inside a local folder."""
+    local = []
+    for item in inputs:
+        if urls.is_url(item):
+            path = urls.local_path(item)
+            if path is not None:
+                local.append(path)
+        else:
+            local.append(Path(item))
+    return local
 
 
 def prepare_output(out: Path, inputs: list[Path], *, shown: str, force: bool = False) -> list[str]:
@@ -361,3 +387,155 @@ _FORMULA_PATTERN = r"^[=+\-@\t\r]"
 def neutralise_formulas(expr: pl.Expr) -> pl.Expr:
     """``expr`` (String) with a ``'`` put before every value that starts like a spreadsheet formula."""
     return pl.when(expr.str.contains(_FORMULA_PATTERN)).then(pl.lit("'") + expr).otherwise(expr)
+
+
+# --- outputs at an fsspec URL ---------------------------------------------------------------------
+
+
+def upload_file(fs: Any, local: Path, remote: str) -> None:
+    """Copy one finished local file to ``remote`` (a path in ``fs``). One function, so tests can watch the order."""
+    fs.put_file(str(local), remote)
+
+
+class RemoteFolder:
+    """An output folder at an fsspec URL: the refusal rules of :func:`check_output_folder`, and the upload.
+
+    ``url`` is used as written; messages show :func:`prep.read.urls.shown_url` (no credentials).
+    """
+
+    def __init__(self, url: str) -> None:
+        self.url = url
+        self.shown = urls.shown_url(url)
+        try:
+            self.fs, path = urls.filesystem(url)
+        except urls.UrlProblem as exc:
+            raise OutputError(f"The output `{self.shown}` {exc.message}." + (f" {exc.hint}" if exc.hint else "")) from exc
+        self.path = path.rstrip("/") or path
+
+    def _at(self, name: str) -> str:
+        return f"{self.path}/{name}"
+
+    def _failed(self, doing: str, exc: BaseException) -> OutputError:
+        return OutputError(f"Cannot {doing} the output `{self.shown}` ({urls.reason(exc)}).")
+
+    def _json(self, name: str) -> dict[str, Any] | None:
+        try:
+            data = json.loads(self.fs.cat_file(self._at(name)).decode("utf-8"))
+        except Exception:  # missing, unreadable, not JSON: not prep's
+            return None
+        return data if isinstance(data, dict) and data.get("tool") == TOOL_NAME else None
+
+    def _entries(self) -> list[str]:
+        """Names directly inside the folder ([] when there is no folder)."""
+        try:
+            if not self.fs.isdir(self.path):
+                return []
+            return sorted(entry.rstrip("/").rsplit("/", 1)[-1] for entry in self.fs.ls(self.path, detail=False))
+        except FileNotFoundError:
+            return []
+
+    def check(self, inputs: list[Any], *, force: bool = False) -> None:
+        """Refuse as :func:`check_output_folder` does: a file, a folder holding an input, a non-empty
+        folder that prep did not write (no prep ``manifest.json`` and no marker of prep's upload) unless ``force``."""
+        again = "Choose another `output` or `--out`."
+        try:
+            if self.fs.isfile(self.path):
+                raise OutputError(f"The output `{self.shown}` is a file, not a folder. {again}")
+            entries = self._entries()
+        except OutputError:
+            raise
+        except Exception as exc:
+            raise self._failed("reach", exc) from exc
+        mine = urls.protocol(self.url)
+        for item in inputs:
+            if urls.is_url(item) and urls.protocol(item) == mine:
+                try:
+                    _, path = urls.filesystem(item)
+                except urls.UrlProblem:
+                    continue
+                if path.startswith(self.path + "/"):
+                    raise OutputError(
+                        f"The output folder `{self.shown}` contains an input file; prep replaces its output folder on every "
+                        f"run and will not risk deleting inputs. {again}"
+                    )
+        if entries and not force and self._json(MANIFEST) is None and self._json(MARKER) is None:
+            raise OutputError(
+                f"The output folder `{self.shown}` is not empty and was not written by prep (no prep manifest.json). "
+                "Choose an empty or new folder so that prep does not overwrite files it did not write, "
+                "or pass --force to replace that folder and everything in it."
+            )
+
+    def upload(self, local: Path) -> None:
+        """Upload the finished local output folder ``local``: marker, old manifest removed, files, stale files
+        removed, ``manifest.json`` last, marker removed (see the module docstring)."""
+        names = sorted(p.relative_to(local).as_posix() for p in local.rglob("*") if p.is_file())
+        if MANIFEST not in names:
+            raise OutputError(f"The output folder for `{self.shown}` has no {MANIFEST}; nothing was uploaded.")
+        try:
+            previous = self._entries()
+            self.fs.makedirs(self.path, exist_ok=True)
+            self.fs.pipe_file(self._at(MARKER), dumps_json({"tool": TOOL_NAME, "pid": os.getpid()}).encode("utf-8"))
+            if MANIFEST in previous:
+                self.fs.rm_file(self._at(MANIFEST))
+            for name in names:
+                if name != MANIFEST:
+                    upload_file(self.fs, local / name, self._at(name))
+            keep = {name.split("/", 1)[0] for name in names} | {MARKER}
+            for name in previous:
+                if name not in keep:
+                    self.fs.rm(self._at(name), recursive=True)
+            upload_file(self.fs, local / MANIFEST, self._at(MANIFEST))
+            self.fs.rm_file(self._at(MARKER))
+        except Exception as exc:
+            raise self._failed("upload to", exc) from exc
+
+    def upload_beside(self, local: Path, suffix: str) -> str:
+        """Upload ``local`` to ``<url><suffix>`` (beside the folder, as the local writer puts failure cases);
+        returns the URL as shown."""
+        try:
+            upload_file(self.fs, local, self.path + suffix)
+        except Exception as exc:
+            raise self._failed("upload beside", exc) from exc
+        return self.shown.rstrip("/") + suffix
+
+
+def run_into_url(
+    url: str,
+    run_local: Callable[..., Any],
+    *,
+    inputs: list[Any],
+    report: Callable[..., None],
+    force: bool = False,
+) -> Any:
+    """Run with the output at ``url``: ``run_local(out, report, force)`` writes a local output folder
+    (the normal run, returning a RunResult); a ``file://`` URL is that local folder itself, any other URL gets
+    the folder written into a temporary local folder and uploaded by :meth:`RemoteFolder.upload`.
+
+    Nothing is uploaded unless the run finished; a run stopped by a failing step uploads only its
+    failure cases, beside the folder (``<url>.<name>.parquet``, as the local writer does).
+    """
+    local = urls.local_path(url)
+    if local is not None:
+        return run_local(local, report, force)
+    remote = RemoteFolder(url)
+    remote.check(inputs, force=force)
+
+    def inner(event: str, **data: Any) -> None:
+        if event != "written":  # the local temporary folder is no one's business
+            report(event, **data)
+
+    with tempfile.TemporaryDirectory(prefix="prep-upload-") as tmp:
+        out = Path(tmp) / "out"
+        try:
+            result = run_local(out, inner, False)
+        except DataError as exc:
+            cases = sorted(p for p in Path(tmp).glob("out.*.parquet") if p.is_file())
+            if not cases:
+                raise
+            shown = [remote.upload_beside(p, p.name[len("out"):]) for p in cases]
+            base = exc.__cause__ if isinstance(exc.__cause__, DataError) else exc
+            raise DataError(f"{base.message} Failure cases: {', '.join(f'`{w}`' for w in shown)}.") from exc
+        remote.upload(out)
+    report("written", output=remote.shown)
+    result.output = remote.shown
+    return result

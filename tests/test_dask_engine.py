@@ -209,3 +209,34 @@ def test_partition_merge_order_of_ledger_calls():
 
     metas = [{"calls": [frame("p1-a"), None, frame("p1-c")]}, {"calls": [frame("p2-a"), frame("p2-b"), None]}]
     assert [f["row_id"][0] for f in _merge_calls(metas)] == ["p1-a", "p2-a", "p2-b", "p1-c"]
+
+
+def test_url_sources_are_opened_by_the_workers(small_pipeline, cluster, tmp_path):
+    # Inputs as file:// URLs: the read task opens them on a worker through fsspec (no path rewriting on
+    # the client). Reference: the local engine on the same pipeline with plain paths.
+    local, _ = cluster
+    plain = run_pipeline(load_pipeline(small_pipeline), out=tmp_path / "plain")
+    text = small_pipeline.read_text(encoding="utf-8")
+    for name in ("desk.csv", "web.jsonl"):
+        text = text.replace(f"path: {name}\n", f"path: {(small_pipeline.parent / name).as_uri()}\n")
+    urls = small_pipeline.with_name("urls.yaml")
+    urls.write_text(text, encoding="utf-8")
+    out = tmp_path / "dask-urls"
+    run_pipeline(load_pipeline(urls), out=out, engine="dask", scheduler=local.scheduler_address, partition_rows=10)
+    for name in [*(f"{s}.parquet" for s in SPLITS), "set_aside.parquet", "duplicates.parquet"]:
+        assert (plain.output / name).read_bytes() == (out / name).read_bytes(), name
+
+
+def test_url_input_a_worker_cannot_read_is_one_line(small_pipeline, tmp_path):
+    import dataclasses
+
+    from prep import dask_engine
+
+    pipeline = load_pipeline(small_pipeline)
+    url = (tmp_path / "not-on-this-worker.csv").as_uri()
+    gone = dataclasses.replace(pipeline.sources[0], path=url, path_text=url)
+    pipeline = dataclasses.replace(pipeline, sources=(gone, *pipeline.sources[1:]))
+    with pytest.raises(dask_engine.WorkerError) as info:
+        dask_engine._read_task(pipeline, 0)
+    assert info.value.exit_code == 2 and "\n" not in str(info.value)
+    assert f"input `{url}` of source `desk` cannot be read on a Dask worker: it does not exist." in str(info.value)

@@ -7,7 +7,7 @@ Public API::
     ReadResult(table, unreadable, rows_read, encoding)
 
 ``source`` is any object with the attributes of the pipeline's source model: ``name``, ``path``
-(resolved), ``path_text`` (as written; the only path that messages show), ``format`` (csv, tsv, jsonl,
+(resolved; or an fsspec URL as a string, opened through :mod:`prep.read.urls`), ``path_text`` (as written; the only path that messages show), ``format`` (csv, tsv, jsonl,
 json, parquet), ``compression`` (gzip or None), ``encoding`` (``auto`` or a codec name),
 ``encoding_fallback``, ``delimiter`` and ``columns`` (canonical name -> column in the file).
 

@@ -4,17 +4,22 @@ A Parquet file is read whole or not at all: a damaged file is an :class:`InputEr
 table, so there are no unreadable records (``unreadable`` is always empty). Typed columns become
 strings by the rules of :mod:`prep.read.strings`; the encoding reported is ``None`` (Parquet stores
 strings as UTF-8 by its specification).
+
+A source given as an fsspec URL is read through fsspec: its footer alone for the column names
+(pyarrow reads it from the seekable file object), the whole file into memory for the data.
 """
 
 from __future__ import annotations
 
+import io
 from typing import Any
 
 import polars as pl
 import pyarrow
 
 from prep.errors import InputError
-from prep.read.rawbytes import check_compression
+from prep.read import urls
+from prep.read.rawbytes import check_compression, load_bytes, open_binary
 from prep.read.result import ReadResult, frame_of, string_frame, wanted_columns, with_source_row
 from prep.read.strings import NotText, series_to_string
 
@@ -35,17 +40,30 @@ def _broken(source: Any, exc: BaseException) -> InputError:
 def read_columns(source: Any) -> list[str]:
     """Column names from the Parquet footer, without reading any data."""
     check_compression(source)
+    if urls.is_url(source.path):
+        return _url_columns(source)
     try:
         return list(pl.read_parquet_schema(source.path).keys())
     except _PARQUET_ERRORS as exc:
         raise _broken(source, exc) from exc
 
 
+def _url_columns(source: Any) -> list[str]:
+    import pyarrow.parquet as pq
+
+    with open_binary(source) as handle:
+        try:
+            return list(pq.ParquetFile(handle).schema_arrow.names)
+        except _PARQUET_ERRORS as exc:
+            raise _broken(source, exc) from exc
+
+
 def read_parquet(source: Any, *, on_unreadable: str) -> ReadResult:
     names = read_columns(source)
     wanted = wanted_columns(source, names)
+    where = io.BytesIO(load_bytes(source)) if urls.is_url(source.path) else source.path
     try:
-        frame = pl.read_parquet(source.path, columns=wanted, use_pyarrow=False)
+        frame = pl.read_parquet(where, columns=wanted, use_pyarrow=False)
     except _PARQUET_ERRORS as exc:
         raise _broken(source, exc) from exc
     columns = []

@@ -3,15 +3,20 @@
 Invariant: every OS or gzip failure leaves this module as an :class:`~prep.errors.InputError`
 naming the file as written in the pipeline file (``source.path_text``), with the original
 exception as ``__cause__``. The absolute path never appears in a message.
+
+``source.path`` is a local :class:`~pathlib.Path` or an fsspec URL (a string, see
+:mod:`prep.read.urls`); a URL is opened with fsspec, then handled exactly as a local file's bytes.
 """
 
 from __future__ import annotations
 
 import gzip
+import hashlib
 import zlib
 from typing import Any
 
 from prep.errors import InputError
+from prep.read import urls
 
 # The text formats that may arrive gzip-compressed. Parquet compresses inside the file.
 GZIP_FORMATS = frozenset({"csv", "tsv", "jsonl", "json"})
@@ -25,6 +30,23 @@ def _os_error(source: Any, exc: OSError) -> InputError:
     # would carry the absolute path, so it is deliberately left out.
     reason = exc.strerror or type(exc).__name__
     return InputError(f"the file cannot be opened ({reason}).", file=source.path_text)
+
+
+def _url_error(source: Any, exc: urls.UrlProblem) -> InputError:
+    return InputError(f"the input of source `{source.name}` {exc.message}.", file=source.path_text, hint=exc.hint)
+
+
+def open_binary(source: Any):
+    """A binary file object of the (still compressed) source file: a local path or an fsspec URL."""
+    if urls.is_url(source.path):
+        try:
+            return urls.open_url(source.path)
+        except urls.UrlProblem as exc:
+            raise _url_error(source, exc) from exc
+    try:
+        return open(source.path, "rb")
+    except OSError as exc:
+        raise _os_error(source, exc) from exc
 
 
 def check_compression(source: Any) -> None:
@@ -56,13 +78,38 @@ def _gunzip(source: Any, data: bytes) -> bytes:
 def load_bytes(source: Any) -> bytes:
     """The whole (decompressed) content of the source file."""
     check_compression(source)
-    try:
-        data = source.path.read_bytes()
-    except OSError as exc:
-        raise _os_error(source, exc) from exc
+    if urls.is_url(source.path):
+        try:
+            data = urls.read_url(source.path)
+        except urls.UrlProblem as exc:
+            raise _url_error(source, exc) from exc
+    else:
+        try:
+            data = source.path.read_bytes()
+        except OSError as exc:
+            raise _os_error(source, exc) from exc
     if source.compression == "gzip":
         data = _gunzip(source, data)
     return data
+
+
+def digest(source: Any) -> tuple[str, int]:
+    """(SHA-256 hex digest, size in bytes) of the source file as stored (compressed), for the card and
+    manifest; a URL is read again through fsspec for it."""
+    if urls.is_url(source.path):
+        try:
+            return urls.digest_url(source.path)
+        except urls.UrlProblem as exc:
+            raise _url_error(source, exc) from exc
+    h = hashlib.sha256()
+    try:
+        with open(source.path, "rb") as fh:
+            for chunk in iter(lambda: fh.read(urls.HASH_CHUNK), b""):
+                h.update(chunk)
+        size = source.path.stat().st_size
+    except OSError as exc:
+        raise _os_error(source, exc) from exc
+    return h.hexdigest(), size
 
 
 class Prefix:
@@ -76,18 +123,16 @@ class Prefix:
         self._source = source
         self._data = b""
         self.complete = False
-        try:
-            self._handle = (
-                gzip.open(source.path, "rb") if source.compression == "gzip" else open(source.path, "rb")
-            )
-        except OSError as exc:
-            raise _os_error(source, exc) from exc
+        self._raw = open_binary(source)
+        self._handle = gzip.GzipFile(fileobj=self._raw, mode="rb") if source.compression == "gzip" else self._raw
 
     def __enter__(self) -> Prefix:
         return self
 
     def __exit__(self, *exc_info: object) -> None:
         self._handle.close()
+        if self._handle is not self._raw:
+            self._raw.close()  # GzipFile does not close a file object it was given
 
     def take(self, n: int) -> bytes:
         while len(self._data) < n and not self.complete:
@@ -102,6 +147,10 @@ class Prefix:
                 raise InputError("the file is not a valid gzip file.", file=self._source.path_text) from exc
             except OSError as exc:
                 raise _os_error(self._source, exc) from exc
+            except Exception as exc:  # an fsspec backend's own error while reading (network, permissions)
+                if not urls.is_url(self._source.path):
+                    raise
+                raise _url_error(self._source, urls.UrlProblem(f"cannot be read ({type(exc).__name__})")) from exc
             if not chunk:
                 self.complete = True
             self._data += chunk
