@@ -28,6 +28,10 @@ How a run is spread (what runs where, and what travels to the client):
    code path as the local engine. This is stage 1 of the design: the collected table holds the
    texts, so the client needs memory for the table after the row-local steps (what the local
    engine needs anyway). Steps after a global step that are row-local go back to the workers.
+   The row-local part of ``near_duplicates`` does run on the workers: before the table is first
+   collected, when that step lies ahead, each partition's compared texts are shingled and signed
+   there (:func:`_sign_ahead`); the client receives the distinct compared texts with their band
+   keys, set sizes and sketches, and the step looks them up instead of signing (the same keys).
 4. **Split, after-split steps, audit, card and writing** run on the client in
    :func:`prep.run.finish_run`, the function the local engine calls, so the output folder is
    written only by :class:`prep.write.OutputFolder` on the client: a failed or killed run never
@@ -525,7 +529,8 @@ def run_pipeline_dask(
         step_facts: list[StepFacts] = []
         timings: list = []
         outputs: dict[str, pl.DataFrame] = {}
-        for spec in pipeline.steps:
+        signed_ahead, ahead_seconds = False, 0.0
+        for position, spec in enumerate(pipeline.steps):
             if step_phase(spec.name) != "table":
                 continue
             stage[0] = f"step `{spec.name}`"
@@ -537,11 +542,23 @@ def run_pipeline_dask(
                 continue
             from prep.run import apply_steps
 
+            if table.local is None and table.parts and not signed_ahead:
+                signed_ahead = True
+                ahead_seconds = _sign_ahead(client, remote_pipeline, table, pipeline.steps[position:])
+            step_report, extra = report, 0.0
+            if spec.name == "near_duplicates" and ahead_seconds:
+                extra, ahead_seconds = ahead_seconds, 0.0  # its signing ran on the workers: count it here
+
+                def step_report(event: str, _extra: float = extra, **data: Any) -> None:
+                    report(event, **({**data, "seconds": data["seconds"] + _extra} if event == "step" else data))
+
             single = dataclasses.replace(pipeline, steps=(spec,))
             try:
-                data, sf, tm, outs = apply_steps(single, table.collect(), ledger, report)
+                data, sf, tm, outs = apply_steps(single, table.collect(), ledger, step_report)
             except DataError as exc:
                 raise_with_failure_cases(out, exc)
+            if extra:
+                tm = [dataclasses.replace(t, seconds=t.seconds + extra) for t in tm]
             table.local, table.columns = data, list(data.columns)
             step_facts += sf
             timings += tm
@@ -553,6 +570,32 @@ def run_pipeline_dask(
         rows_read=rows_read, card_inputs=card_inputs, step_facts=step_facts, timings=timings, outputs=outputs,
         started=started, started_at=started_at, report=report, engine="dask",
     )
+
+
+def _sign_task(pipeline: Pipeline, config: Any, part: pl.DataFrame) -> Any:
+    """The near_duplicates step's band keys and sketches of one partition (row-local work)."""
+    from prep.steps import near_duplicates
+
+    _test_hook()
+    with _as_worker_error():
+        return near_duplicates.sign_ahead(part, config, list(pipeline.text))
+
+
+def _sign_ahead(client: Any, pipeline: Pipeline, table: _Table, later: tuple) -> float:
+    """When a ``near_duplicates`` step lies ahead, sign every partition's compared texts on the
+    workers (shingles, MinHash, band keys, sketches: row-local) and remember the results on the
+    client, where the step looks them up instead of signing (the same result: keys are a function
+    of the text; a text changed by a step in between is simply signed by the step). Only the
+    distinct compared texts and their keys and sketches travel. Returns the seconds it took."""
+    spec = next((s for s in later if s.name == "near_duplicates"), None)
+    if spec is None:
+        return 0.0
+    from prep.neardup.search import remember_signed
+
+    t0 = time.perf_counter()
+    results = client.gather([client.submit(_sign_task, pipeline, spec.config, p, pure=False) for p in table.parts])
+    remember_signed([r for r in results if r is not None])
+    return time.perf_counter() - t0
 
 
 def _partitionable(spec: Any, pipeline: Pipeline, columns: list[str]) -> bool:
