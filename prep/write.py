@@ -48,7 +48,7 @@ from typing import Any
 
 import polars as pl
 
-from prep.errors import DataError, OutputError
+from prep.errors import DataError, OutputError, PrepError
 from prep.read import urls
 
 MANIFEST = "manifest.json"
@@ -499,6 +499,13 @@ class RemoteFolder:
         return self.shown.rstrip("/") + suffix
 
 
+class UploadInterrupted(PrepError):
+    """Ctrl-C during the upload of an output URL: unlike an interrupt earlier in the run, the previous
+    output is no longer whole (the CLI must not say it is unchanged)."""
+
+    exit_code = 130
+
+
 def run_into_url(
     url: str,
     run_local: Callable[..., Any],
@@ -535,7 +542,13 @@ def run_into_url(
             shown = [remote.upload_beside(p, p.name[len("out"):]) for p in cases]
             base = exc.__cause__ if isinstance(exc.__cause__, DataError) else exc
             raise DataError(f"{base.message} Failure cases: {', '.join(f'`{w}`' for w in shown)}.") from exc
-        remote.upload(out)
+        try:
+            remote.upload(out)
+        except KeyboardInterrupt:
+            raise UploadInterrupted(
+                f"Interrupted while uploading to `{remote.shown}`: the output there is incomplete (it has no "
+                "manifest.json); the next run replaces it."
+            ) from None
     report("written", output=remote.shown)
     result.output = remote.shown
     return result

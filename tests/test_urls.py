@@ -403,3 +403,22 @@ def test_split_history_as_url_is_refused(small_pipeline):
     with pytest.raises(PipelineError) as info:
         load_pipeline(small_pipeline)
     assert "`split.history`" in str(info.value) and "must be a local folder" in str(info.value)
+
+
+def test_interrupt_during_the_upload_does_not_claim_the_previous_output_is_unchanged(mem, small_pipeline, cli_runner, monkeypatch):
+    # Ctrl-C while files are being uploaded: the remote folder is now incomplete, and the message
+    # must say so (exit 130, the shell's code for an interrupt), not that nothing changed.
+    from prep import write
+
+    fs, root = mem
+    target = f"{root}/interrupted"
+    calls = []
+
+    def interrupted(fs_, local, remote):
+        calls.append(remote)
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(write, "upload_file", interrupted)
+    result = cli_runner.invoke(cli, ["run", str(small_pipeline), "--out", target])
+    assert calls and result.exit_code == 130
+    assert "incomplete" in result.output and "unchanged" not in result.output
