@@ -18,14 +18,12 @@ The figure says what the distribution costs, not what a cluster gains.
 
 from __future__ import annotations
 
-import argparse
 import shutil
 import sys
-import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from bench_pipeline import DEFAULT_SIZES, exponent, generate, pipeline_for, run_once  # noqa: E402
+from bench_pipeline import DEFAULT_SIZES, exponent, generate, pipeline_for, run_once, run_sizes  # noqa: E402,F401
 
 COMPARED = ("train.parquet", "validation.parquet", "test.parquet", "set_aside.parquet", "duplicates.parquet")
 
@@ -80,21 +78,13 @@ def report(results: dict[int, dict]) -> str:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--sizes", default=",".join(map(str, DEFAULT_SIZES)))
-    parser.add_argument("--data", type=Path, default=None, help="keep and reuse generated inputs here")
-    args = parser.parse_args(argv)
-    sizes = [int(x) for x in args.sizes.split(",")]
-    with tempfile.TemporaryDirectory(prefix="prep-bench-dask-") as tmp:
-        folder = args.data or Path(tmp)
-        folder.mkdir(parents=True, exist_ok=True)
-        results = {}
-        for n in sizes:
-            results[n] = run_both(n, folder)
-            r = results[n]
-            print(f"{n:,} rows: local {r['local']['wall_seconds']:.1f} s, dask {r['dask']['wall_seconds']:.1f} s, "
-                  f"same outputs {r['same_outputs']}", flush=True)
-        print(report(results))
+    results, _ = run_sizes(
+        argv, __doc__.splitlines()[0], run_both,
+        lambda n, r: (f"{n:,} rows: local {r['local']['wall_seconds']:.1f} s, dask {r['dask']['wall_seconds']:.1f} s, "
+                      f"same outputs {r['same_outputs']}"),
+        prefix="prep-bench-dask-",
+    )
+    print(report(results))
     return 0
 
 

@@ -114,26 +114,37 @@ def report(results: dict[int, dict]) -> str:
     return "\n".join(lines)
 
 
-def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+def run_sizes(argv: list[str] | None, description: str, run, line, *, prefix: str) -> tuple[dict[int, dict], argparse.Namespace]:
+    """The command line both benchmark scripts share (``--sizes``, ``--data``, ``--json``): for each
+    size, ``run(n, folder)`` gives its figures and ``line(n, figures)`` the progress line printed."""
+    parser = argparse.ArgumentParser(description=description)
     parser.add_argument("--sizes", default=",".join(map(str, DEFAULT_SIZES)))
     parser.add_argument("--data", type=Path, default=None, help="keep and reuse generated inputs here")
     parser.add_argument("--json", type=Path, default=None, help="also write the figures as JSON")
     args = parser.parse_args(argv)
     sizes = [int(x) for x in args.sizes.split(",")]
-    with tempfile.TemporaryDirectory(prefix="prep-bench-") as tmp:
+    results: dict[int, dict] = {}
+    with tempfile.TemporaryDirectory(prefix=prefix) as tmp:
         folder = args.data or Path(tmp)
         folder.mkdir(parents=True, exist_ok=True)
-        results = {}
         for n in sizes:
-            exports = generate(n, folder)
-            results[n] = run_once(pipeline_for(exports, folder))
-            print(f"{n:,} rows: {results[n]['wall_seconds']:.1f} s, peak {results[n]['peak_rss_mib']:.0f} MiB", flush=True)
-        print(report(results))
-        if args.json:
-            args.json.write_text(json.dumps({str(k): v for k, v in results.items()}, indent=1), encoding="utf-8")
+            results[n] = run(n, folder)
+            print(line(n, results[n]), flush=True)
+    if args.json:
+        args.json.write_text(json.dumps({str(k): v for k, v in results.items()}, indent=1), encoding="utf-8")
+    return results, args
+
+
+def main(argv: list[str] | None = None) -> int:
+    results, _ = run_sizes(
+        argv, __doc__.splitlines()[0],
+        lambda n, folder: run_once(pipeline_for(generate(n, folder), folder)),
+        lambda n, r: f"{n:,} rows: {r['wall_seconds']:.1f} s, peak {r['peak_rss_mib']:.0f} MiB",
+        prefix="prep-bench-",
+    )
+    print(report(results))
     return 0
 
 
 if __name__ == "__main__":
-    raise SystemExit(main())
+    sys.exit(main())
