@@ -202,6 +202,13 @@ def _band_keys(
     return signed
 
 
+def _bands(settings: Settings) -> tuple[int, int, float]:
+    """(bands, rows, candidate probability at the threshold) of ``settings``."""
+    return lsh.choose_bands(
+        settings.threshold, settings.permutations, settings.target_recall, bands=settings.bands, rows=settings.rows
+    )
+
+
 def _key_params(settings: Settings, bands: int, rows: int) -> tuple:
     """What band keys and sketches depend on, besides the text."""
     return (settings.shingles, settings.shingle_n, settings.permutations, bands, rows)
@@ -218,9 +225,7 @@ def sign(texts: pl.Series, settings: Settings) -> tuple[tuple, pl.Series, _Signe
     each partition on the workers and hands the results to :func:`remember_signed` on the client,
     so the search there looks the keys up instead of signing (the shingling and MinHash work is
     row-local; only band keys, sizes and sketches travel)."""
-    bands, rows, _ = lsh.choose_bands(
-        settings.threshold, settings.permutations, settings.target_recall, bands=settings.bands, rows=settings.rows
-    )
+    bands, rows, _ = _bands(settings)
     distinct = texts.fill_null("").unique(maintain_order=True)
     distinct = distinct.filter(distinct.str.len_bytes() > 0)
     return _key_params(settings, bands, rows), distinct, _band_keys(distinct, settings, bands, rows)
@@ -374,9 +379,7 @@ def find(
             ci, cj, sim = exhaustive.all_pairs(sh, settings.threshold)
         facts["candidates"] = int(reps.size * (reps.size - 1) // 2)
     else:
-        bands, rows, p_at = lsh.choose_bands(
-            settings.threshold, settings.permutations, settings.target_recall, bands=settings.bands, rows=settings.rows
-        )
+        bands, rows, p_at = _bands(settings)
         facts.update(
             permutations=settings.permutations, bands=bands, rows=rows, expected_recall_at_threshold=round(p_at, 6)
         )
