@@ -34,7 +34,6 @@ from __future__ import annotations
 
 import ctypes
 import errno
-import hashlib
 import json
 import os
 import re
@@ -66,11 +65,7 @@ ROW_GROUP_ROWS = 131_072
 
 
 def sha256_file(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for chunk in iter(lambda: fh.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
+    return urls.sha256_stream(open(path, "rb"))[0]
 
 
 def dumps_json(data: Any) -> str:

@@ -11,7 +11,6 @@ exception as ``__cause__``. The absolute path never appears in a message.
 from __future__ import annotations
 
 import gzip
-import hashlib
 import zlib
 from typing import Any
 
@@ -101,15 +100,10 @@ def digest(source: Any) -> tuple[str, int]:
             return urls.digest_url(source.path)
         except urls.UrlProblem as exc:
             raise _url_error(source, exc) from exc
-    h = hashlib.sha256()
     try:
-        with open(source.path, "rb") as fh:
-            for chunk in iter(lambda: fh.read(urls.HASH_CHUNK), b""):
-                h.update(chunk)
-        size = source.path.stat().st_size
+        return urls.sha256_stream(open(source.path, "rb"))
     except OSError as exc:
         raise _os_error(source, exc) from exc
-    return h.hexdigest(), size
 
 
 class Prefix:

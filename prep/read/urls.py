@@ -138,19 +138,24 @@ def read_url(url: str) -> bytes:
         raise UrlProblem(f"cannot be read ({reason(exc)})") from exc
 
 
-def digest_url(url: str) -> tuple[str, int]:
-    """(SHA-256 hex digest, size in bytes) of the content stored at ``url``, read in 1 MiB chunks."""
+def sha256_stream(handle: Any) -> tuple[str, int]:
+    """(SHA-256 hex digest, size in bytes) of what a binary file object holds, read in 1 MiB chunks
+    (the one hashing loop for inputs and outputs, local or URL); the handle is closed."""
     h = hashlib.sha256()
     size = 0
-    handle = open_url(url)
+    with handle:
+        for chunk in iter(lambda: handle.read(HASH_CHUNK), b""):
+            h.update(chunk)
+            size += len(chunk)
+    return h.hexdigest(), size
+
+
+def digest_url(url: str) -> tuple[str, int]:
+    """(SHA-256 hex digest, size in bytes) of the content stored at ``url``."""
     try:
-        with handle:
-            for chunk in iter(lambda: handle.read(HASH_CHUNK), b""):
-                h.update(chunk)
-                size += len(chunk)
+        return sha256_stream(open_url(url))
     except Exception as exc:
         raise UrlProblem(f"cannot be read ({reason(exc)})") from exc
-    return h.hexdigest(), size
 
 
 def facts_path(url: str) -> str:
