@@ -95,15 +95,15 @@ def load_bytes(source: Any) -> bytes:
 def digest(source: Any) -> tuple[str, int]:
     """(SHA-256 hex digest, size in bytes) of the source file as stored (compressed), for the card and
     manifest; a URL is read again through fsspec for it."""
-    if urls.is_url(source.path):
-        try:
-            return urls.digest_url(source.path)
-        except urls.UrlProblem as exc:
-            raise _url_error(source, exc) from exc
+    handle = open_binary(source)
     try:
-        return urls.sha256_stream(open(source.path, "rb"))
-    except OSError as exc:
-        raise _os_error(source, exc) from exc
+        return urls.sha256_stream(handle)
+    except Exception as exc:  # a URL backend may raise its own kinds
+        if urls.is_url(source.path):
+            raise _url_error(source, urls.UrlProblem(f"cannot be read ({urls.reason(exc)})")) from exc
+        if isinstance(exc, OSError):
+            raise _os_error(source, exc) from exc
+        raise
 
 
 class Prefix:

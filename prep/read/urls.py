@@ -150,14 +150,6 @@ def sha256_stream(handle: Any) -> tuple[str, int]:
     return h.hexdigest(), size
 
 
-def digest_url(url: str) -> tuple[str, int]:
-    """(SHA-256 hex digest, size in bytes) of the content stored at ``url``."""
-    try:
-        return sha256_stream(open_url(url))
-    except Exception as exc:
-        raise UrlProblem(f"cannot be read ({reason(exc)})") from exc
-
-
 def facts_path(url: str) -> str:
     """The URL as the card and manifest record it: :func:`shown_url`, or only the file name for a
     ``file://`` URL (an absolute local path, which the card never shows)."""
