@@ -36,7 +36,8 @@ import polars as pl
 from prep.config import ConfigValueError
 from prep.errors import DataError
 from prep.ledger import Reason
-from prep.neardup import EXHAUSTIVE_MAX_ROWS, Settings, find, normalise_texts, pair_similarity
+from prep.neardup import EXHAUSTIVE_MAX_ROWS, Settings, find, normalise_texts
+from prep.neardup.search import similarity_of
 from prep.neardup.report import DUPLICATES_SCHEMA
 from prep.steps.base import StepContext
 from prep.steps.exact_duplicates import _check_columns, _times
@@ -191,7 +192,7 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
     kept_pos = work.get_column("_kept_pos").to_numpy()
     others = members != kept_pos
     sim = np.ones(members.size, dtype=np.float64)
-    sim[others] = pair_similarity(texts, members[others], kept_pos[others], settings)
+    sim[others] = similarity_of(found, texts, members[others], kept_pos[others], settings)
     work = work.with_columns(pl.Series("_sim", sim))
 
     row_ids = table.get_column("row_id")

@@ -296,3 +296,36 @@ def test_edit_similarity_option():
     assert (found.i.tolist(), found.j.tolist()) == ([0], [1])
     # rapidfuzz's Indel ratio: 1 - 1/(39+38) deletions/insertions -> (77-1)/77.
     assert found.similarity[0] == pytest.approx(1 - 1 / 77)
+
+
+@pytest.mark.parametrize("similarity", ["jaccard", "edit"])
+def test_similarity_of_found_pairs_equals_computing_every_pair(similarity):
+    # Reference: plain-Python character 5-gram sets (Jaccard) and rapidfuzz's Indel ratio (edit),
+    # computed for every asked pair, whether or not the search verified it.
+    from rapidfuzz import fuzz
+
+    from prep.neardup.search import similarity_of
+
+    rng = random.Random(11)
+    values = _planted(rng, 300)
+    values += values[:20]  # identical copies: linked with similarity 1.0
+    texts = pl.Series(values)
+    settings = Settings(threshold=0.7, similarity=similarity)
+    found = find(texts, settings)
+    assert found.i.size > 50
+    # Every verified pair both ways round, pairs within clusters that were not verified, and
+    # unrelated pairs.
+    i = np.concatenate([found.i, found.j, rng.sample(range(len(values)), 40)])
+    j = np.concatenate([found.j, found.i, rng.sample(range(len(values)), 40)])
+    in_cluster = np.flatnonzero(found.cluster >= 0)
+    i = np.concatenate([i, in_cluster[:-1]])
+    j = np.concatenate([j, in_cluster[1:]])
+    keep = i != j
+    i, j = i[keep], j[keep]
+    got = similarity_of(found, texts, i, j, settings)
+    for a, b, s in zip(i.tolist(), j.tolist(), got.tolist()):
+        if similarity == "jaccard":
+            want = _jaccard(_char_set(values[a], 5), _char_set(values[b], 5))
+        else:
+            want = fuzz.ratio(values[a], values[b]) / 100
+        assert s == pytest.approx(want, abs=1e-12)
