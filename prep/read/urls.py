@@ -50,10 +50,20 @@ def protocol(url: str) -> str:
     return url.split("://", 1)[0].lower()
 
 
+# Azure URLs of fsspec (adlfs; this form from memory) put the container where user-info goes
+# (``abfs://container@account.dfs.core.windows.net/...``);
+# there a part before "@" without ":" is the container's name and is shown.
+_CONTAINER_SCHEMES = {"abfs", "abfss", "az", "adl", "wasb", "wasbs"}
+
+
 def shown_url(url: str) -> str:
-    """``url`` as messages, the card and the manifest show it: without user-info, query and fragment."""
+    """``url`` as messages, the card and the manifest show it: without user-info, query and fragment
+    (an Azure container name stays: see _CONTAINER_SCHEMES)."""
     parts = urlsplit(url)
-    netloc = parts.netloc.rpartition("@")[2]
+    info, at, host = parts.netloc.rpartition("@")
+    netloc = host
+    if at and parts.scheme.lower() in _CONTAINER_SCHEMES and ":" not in info:
+        netloc = f"{info}@{host}"
     return urlunsplit((parts.scheme, netloc, parts.path, "", ""))
 
 
