@@ -29,9 +29,10 @@ How a run is spread (what runs where, and what travels to the client):
    texts, so the client needs memory for the table after the row-local steps (what the local
    engine needs anyway). Steps after a global step that are row-local go back to the workers.
    The row-local part of ``near_duplicates`` does run on the workers: before the table is first
-   collected, when that step lies ahead, each partition's compared texts are shingled and signed
-   there (:func:`_sign_ahead`); the client receives the distinct compared texts with their band
-   keys, set sizes and sketches, and the step looks them up instead of signing (the same keys).
+   collected, when that step lies ahead, signing each partition's compared texts starts there
+   (:func:`_start_signing`) while the client runs the global steps before it; just before the
+   step, the client receives the distinct compared texts with their band keys, set sizes and
+   sketches (:func:`_finish_signing`), and the step looks them up instead of signing (the same keys).
 4. **Split, after-split steps, audit, card and writing** run on the client in
    :func:`prep.run.finish_run`, the function the local engine calls, so the output folder is
    written only by :class:`prep.write.OutputFolder` on the client: a failed or killed run never
@@ -455,6 +456,7 @@ class _Table:
         self.parts: list[Any] | None = None   # futures, in row order
         self.local: pl.DataFrame | None = None
         self.columns: list[str] = []
+        self.in_use = False  # other tasks still read the partitions
 
     def remote(self) -> list[Any]:
         if self.parts is None:
@@ -469,7 +471,10 @@ class _Table:
             frames = self.client.gather(self.parts)
             schema = {c: (pl.Int64 if c == "source_row" else pl.String) for c in self.columns}
             self.local = pl.concat(frames, how="vertical") if frames else pl.DataFrame(schema=schema)
-            self.client.cancel(self.parts)
+            if not self.in_use:
+                self.client.cancel(self.parts)
+            # else: tasks still read the partitions (signing ahead); dropping the futures lets the
+            # scheduler free them once those tasks are done (cancelling would cancel the tasks too).
             self.parts = None
         return self.local
 
@@ -529,7 +534,7 @@ def run_pipeline_dask(
         step_facts: list[StepFacts] = []
         timings: list = []
         outputs: dict[str, pl.DataFrame] = {}
-        signed_ahead, ahead_seconds = False, 0.0
+        signed_ahead, signing, ahead_seconds = False, None, 0.0
         for position, spec in enumerate(pipeline.steps):
             if step_phase(spec.name) != "table":
                 continue
@@ -544,7 +549,10 @@ def run_pipeline_dask(
 
             if table.local is None and table.parts and not signed_ahead:
                 signed_ahead = True
-                ahead_seconds = _sign_ahead(client, remote_pipeline, table, pipeline.steps[position:])
+                signing = _start_signing(client, remote_pipeline, table, pipeline.steps[position:])
+            if spec.name == "near_duplicates" and signing is not None:
+                ahead_seconds, signing = _finish_signing(client, signing), None
+                table.in_use = False
             step_report, extra = report, 0.0
             if spec.name == "near_duplicates" and ahead_seconds:
                 extra, ahead_seconds = ahead_seconds, 0.0  # its signing ran on the workers: count it here
@@ -581,19 +589,27 @@ def _sign_task(pipeline: Pipeline, config: Any, part: pl.DataFrame) -> Any:
         return near_duplicates.sign_ahead(part, config, list(pipeline.text))
 
 
-def _sign_ahead(client: Any, pipeline: Pipeline, table: _Table, later: tuple) -> float:
-    """When a ``near_duplicates`` step lies ahead, sign every partition's compared texts on the
-    workers (shingles, MinHash, band keys, sketches: row-local) and remember the results on the
-    client, where the step looks them up instead of signing (the same result: keys are a function
-    of the text; a text changed by a step in between is simply signed by the step). Only the
-    distinct compared texts and their keys and sketches travel. Returns the seconds it took."""
+def _start_signing(client: Any, pipeline: Pipeline, table: _Table, later: tuple) -> list[Any] | None:
+    """When a ``near_duplicates`` step lies ahead, start signing every partition's compared texts
+    on the workers (shingles, MinHash, band keys, sketches: row-local); the client meanwhile runs
+    the global steps before it. :func:`_finish_signing` collects the results just before the step,
+    which looks them up instead of signing (the same result: keys are a function of the text; a
+    text changed by a step in between is simply signed by the step). Only the distinct compared
+    texts and their keys and sketches travel. The futures, or None when no such step lies ahead."""
     spec = next((s for s in later if s.name == "near_duplicates"), None)
     if spec is None:
-        return 0.0
+        return None
+    table.in_use = True
+    return [client.submit(_sign_task, pipeline, spec.config, p, pure=False) for p in table.parts]
+
+
+def _finish_signing(client: Any, futures: list[Any]) -> float:
+    """Wait for the signing started by :func:`_start_signing` and remember its results on the
+    client; returns the seconds waited (counted in the near_duplicates step's time)."""
     from prep.neardup.search import remember_signed
 
     t0 = time.perf_counter()
-    results = client.gather([client.submit(_sign_task, pipeline, spec.config, p, pure=False) for p in table.parts])
+    results = client.gather(futures)
     remember_signed([r for r in results if r is not None])
     return time.perf_counter() - t0
 
