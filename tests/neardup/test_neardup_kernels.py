@@ -37,6 +37,20 @@ def test_shingle_kernel_equals_the_numpy_definition(kind, n):
     assert np.array_equal(hashes, ref_hashes)
 
 
+@pytest.mark.parametrize("kind, n", [("char", 1), ("char", 5), ("char", 9), ("word", 3)])
+@pytest.mark.parametrize("chunk", [1, 37, 1 << 22])
+def test_shingles_in_chunks_equal_the_numpy_definition(kind, n, chunk, monkeypatch):
+    # shingle() fingerprints chunks of texts into one array; a chunk boundary must change nothing
+    # (chunks of one code point put every text in a chunk of its own).
+    monkeypatch.setattr(shingles, "CHUNK_CODEPOINTS", chunk)
+    texts = _texts(70 + n, 300, 120) + ["x" * 100]
+    got = shingle(texts, kind, n)
+    ref_counts, ref_hashes = shingles._chunk_hashes_numpy(texts, kind, n)
+    assert np.array_equal(np.diff(got.offsets), ref_counts)
+    assert np.array_equal(got.hashes, ref_hashes)
+    assert shingle([], kind, n).hashes.size == 0 and shingle([""], kind, n).offsets.tolist() == [0, 0]
+
+
 def test_substring_kernel_equals_horner_in_python():
     # Reference: the polynomial hash written out in Python integers modulo 2**64.
     from prep.neardup import kernels
