@@ -24,8 +24,14 @@ OTHER_WHITE_SPACE = "[\t\n\x0b\x0c\r\x85\xa0\u1680\u2000-\u200a\u2028\u2029\u202
 
 # A row needs collapsing when it holds white space other than U+0020, or two spaces in a row.
 _NEEDS_COLLAPSE = OTHER_WHITE_SPACE + "|  "
-# The same runs as ``\s+``, spelled out: measured about 25% faster than the Unicode class.
-_RUN = "(?:" + OTHER_WHITE_SPACE + "| )+"
+# One white-space character, as ``\s``, spelled out: measured about 25% faster than the Unicode class.
+_WHITE = "(?:" + OTHER_WHITE_SPACE + "| )"
+# The maximal runs of white space that are not a single U+0020: a run that starts with other white
+# space, or a space followed by more. (A match starts at the first character of such a run, and
+# the greedy tail takes the rest of it; a single space never matches.) Replacing these by one space
+# equals replacing every ``\s+`` run, without rewriting each single space by itself, which cost most
+# of the time (measured: 2.5-2.9 s -> 0.45 s on 329k raw ticket bodies of the 1M demo).
+_RUN = OTHER_WHITE_SPACE + _WHITE + "*| " + _WHITE + "+"
 
 
 def collapse_whitespace(series: pl.Series) -> pl.Series:

@@ -34,6 +34,17 @@ def test_collapse_whitespace_equals_the_plain_expression():
     assert got.to_list() == _plain(series).to_list()
 
 
+def test_collapse_whitespace_equals_the_plain_expression_on_every_short_string():
+    # Exhaustive comparison with the plain expression: every string of up to 6 characters over a
+    # letter, the space and two other white-space characters (runs of every shape and position).
+    import itertools
+
+    alphabet = ["a", " ", "\t", "\u3000"]
+    values = ["".join(p) for n in range(7) for p in itertools.product(alphabet, repeat=n)]
+    series = pl.Series("t", values, dtype=pl.String)
+    assert collapse_whitespace(series).to_list() == _plain(series).to_list()
+
+
 def test_rewrite_where_touches_only_matching_rows():
     series = pl.Series("t", ["abc", None, "xyz", "aXc"])
     got = rewrite_where(series, "X", lambda s: s.str.to_lowercase())
