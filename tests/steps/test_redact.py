@@ -154,6 +154,55 @@ def test_phone_cases(text: str, expected: str) -> None:
     assert one(text, regions=["GB", "US"]) == expected
 
 
+def test_bare_digit_runs_skip_libphonenumber_without_changing_results() -> None:
+    # Reference: libphonenumber's own matcher (find_phones, the python port of Google's
+    # libphonenumber). The shortcut may only skip candidates the library would not accept: bare
+    # ASCII digit runs of at most 20 digits not starting with 0. Runs that look like numbers of
+    # many regions (with and without a country code) are included, of every length up to the limit.
+    import random
+
+    from phonenumbers import phonenumbermatcher
+
+    from prep.pii import detect
+
+    assert detect.BARE_DIGITS_MAX == phonenumbermatcher._DIGIT_BLOCK_LIMIT
+    rng = random.Random(7)
+    prefixes = ["1202555", "4477009", "447700900", "1555010", "4930", "33142", "9198", "861", "611", "7495", "2",
+                "07700900", "0207946", "0"]
+    runs = {p + "".join(rng.choice("0123456789") for _ in range(n)) for p in prefixes for n in range(0, 16)}
+    runs |= {"".join(rng.choice("0123456789") for _ in range(rng.randint(7, 22))) for _ in range(400)}
+    # What the shortcut skips (so breaking its rule, e.g. allowing a leading 0, lets phones in here).
+    runs = {r for r in runs if len(r) >= 7 and detect._is_bare_digit_run(r)}
+    assert len(runs) > 300
+    for regions in ([], ["GB", "US"], ["DE", "FR", "IN", "CN", "AU", "RU"]):
+        assert [r for r in sorted(runs) if detect.find_phones(r, regions)] == []
+    # Not skipped: a trunk prefix, a separator, a plus, non-ASCII digits, or more than 20 digits.
+    for other in ["07700900123", "7700 900123", "+447700900123", "٤٤٧٧٠٠٩٠٠١٢٣", "1" * 21]:
+        assert not detect._is_bare_digit_run(other)
+    assert one("call 07700900123 now", regions=["GB"]) == "call <PHONE> now"
+
+
+def test_rows_with_only_rejected_candidates_stay_as_they_are() -> None:
+    # Only rows holding an accepted value are rebuilt; rows whose candidates are all rejected
+    # (order numbers, amounts) and rows beside them keep every character, markers included.
+    texts = [
+        "Call 07700 900123 after six.",
+        "Order 4481421192 from 2024-05-01, total 1 234.50",
+        "Order 4481421192, call 07700 900123 or 07700 900123.",
+        None,
+        "",
+        "Ref 4481421192\x00ñ",
+    ]
+    assert run(texts, regions=["GB"]) == [
+        "Call <PHONE> after six.",
+        "Order 4481421192 from 2024-05-01, total 1 234.50",
+        "Order 4481421192, call <PHONE> or <PHONE>.",
+        None,
+        "",
+        "Ref 4481421192\x00ñ",
+    ]
+
+
 def test_without_regions_only_international_numbers() -> None:
     assert one("Call 07700 900123 or +44 7700 900124.") == "Call 07700 900123 or <PHONE>."
 
