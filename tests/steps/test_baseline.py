@@ -8,12 +8,13 @@ All texts are invented.
 from __future__ import annotations
 
 import random
+import warnings
 
 import polars as pl
 import pytest
 from sklearn.metrics import accuracy_score, balanced_accuracy_score, confusion_matrix, f1_score
 
-from prep.steps.baseline import Config, apply_splits, sample_per_class
+from prep.steps.baseline import Config, apply_splits, sample_per_class, scores
 
 WORDS = {
     "Billing": "invoice charge refund payment receipt fee price overcharged twice card",
@@ -70,6 +71,30 @@ def test_metrics_agree_with_scikit_learn_on_the_written_predictions(make_ctx, sp
     assert ctx.facts["sampled"] is False
 
 
+@pytest.mark.parametrize("seed", range(6))
+def test_scores_equal_scikit_learn_on_the_label_strings(seed):
+    # Reference: scikit-learn's metric functions on the string labels themselves (scores() hands
+    # them integer codes). Labels whose code-point order differs from a case-blind order, non-ASCII
+    # labels, and predicted classes absent from the true labels (and the reverse) are included.
+    rng = random.Random(seed)
+    names = ["Billing", "billing", "Zone", "Émile", "Ünlock", "_other", "Lost & Found"]
+    true_names, pred_names = rng.sample(names, rng.randint(1, 5)), rng.sample(names, rng.randint(1, 5))
+    y = [rng.choice(true_names) for _ in range(rng.randint(1, 300))]
+    p = [t if rng.random() < 0.6 and t in pred_names else rng.choice(pred_names) for t in y]
+    metrics, confusion = scores(y, p)
+    labels = sorted(set(y) | set(p))
+    assert confusion["labels"] == labels
+    assert confusion["matrix"] == confusion_matrix(y, p, labels=labels).tolist()
+    assert metrics["rows"] == len(y)
+    assert metrics["accuracy"] == round(float(accuracy_score(y, p)), 4)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)
+        assert metrics["balanced_accuracy"] == round(float(balanced_accuracy_score(y, p)), 4)
+    assert metrics["macro_f1"] == round(float(f1_score(y, p, labels=labels, average="macro", zero_division=0)), 4)
+    per_class = f1_score(y, p, labels=labels, average=None, zero_division=0)
+    assert metrics["per_class_f1"] == {c: round(float(f), 4) for c, f in zip(labels, per_class)}
+
+
 def test_deterministic(make_ctx, splits):
     a, b = make_ctx("baseline"), make_ctx("baseline")
     apply_splits(splits, Config(), a)
@@ -102,3 +127,15 @@ def test_one_class_in_train_is_skipped(make_ctx, splits):
     apply_splits(one, Config(), ctx)
     assert ctx.facts["metrics"] == {"validation": None, "test": None}
     assert "skipped" in ctx.facts
+
+
+def test_sample_keys_are_reused_only_for_the_same_ids_and_seed():
+    # Reference: prep.split.stable_keys (checked against hashlib's BLAKE2b in tests/test_split.py);
+    # the cache must give exactly its keys whatever the order of calls.
+    from prep.split import stable_keys
+    from prep.steps.baseline import _sample_keys
+
+    ids = pl.Series("row_id", [f"w:{i}" for i in range(1000)])
+    changed = ids.clone().scatter(500, "w:x")  # same length, one id differs
+    for values, seed in [(ids, 7), (ids, 7), (ids.clone(), 7), (changed, 7), (ids, 8), (ids.head(999), 8), (ids, 7)]:
+        assert _sample_keys(values, seed).to_list() == stable_keys(values, seed=seed).to_list()
