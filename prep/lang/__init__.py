@@ -51,14 +51,20 @@ def _cld2_chunk(texts: Sequence[str]) -> list[str]:
     import pycld2
 
     out = []
+    codes: dict[str, str] = {}  # CLD2 code -> ISO code: a few dozen distinct codes, converted once each
     for text in texts:
         try:
             # bestEffort: answer even when CLD2 deems the text too short to be reliable, as
             # langdetect does; the step's own `min_chars` decides what is too short.
             _reliable, _bytes, details = pycld2.detect(text, bestEffort=True)
-            out.append(iso_code(details[0][1]))
         except pycld2.error:  # e.g. text CLD2 rejects as invalid UTF-8 (lone surrogates)
             out.append(UNDETERMINED)
+            continue
+        code = details[0][1]
+        iso = codes.get(code)
+        if iso is None:
+            iso = codes[code] = iso_code(code)
+        out.append(iso)
     return out
 
 

@@ -78,7 +78,10 @@ def detect_languages(texts: pl.Series, config: Config) -> tuple[pl.Series, int, 
     # here than counting the matches of \p{L} (measured on the demo).
     short = ~texts.str.contains(rf"(?:\p{{L}}\P{{L}}*){{{config.min_chars}}}") if config.min_chars else pl.repeat(False, texts.len(), eager=True)
     prefixes = texts.str.slice(0, config.prefix_chars)
-    distinct = prefixes.filter(~short).unique().sort()
+    # Distinct prefixes in order of first appearance: deterministic, and the answer for a prefix does
+    # not depend on its position. (Sorting them, as before, cost ~1 s per 350k rows and made the
+    # lookup below slower; measured on the 1M demo's desk source.)
+    distinct = prefixes.filter(~short).unique(maintain_order=True)
     codes = identify(distinct.to_list(), config.backend, config.workers)
     known = prefixes.replace_strict(distinct, pl.Series(codes, dtype=pl.String), default=UNDETERMINED, return_dtype=pl.String)
     language = pl.select(pl.when(short).then(pl.lit(UNDETERMINED)).otherwise(known)).to_series().alias(COLUMN)
