@@ -62,9 +62,11 @@ class RunResult:
 
 def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger) -> tuple[pl.DataFrame, SourceFacts]:
     from prep.read import read_source
+    from prep.read.rawbytes import digest_beside
     from prep.check import require_columns
 
-    result = read_source(source, on_unreadable=pipeline.on_unreadable)
+    with digest_beside(source) as hashing:  # the input's SHA-256, on a thread while it is parsed
+        result = read_source(source, on_unreadable=pipeline.on_unreadable)
     require_columns(pipeline, index, source, [c for c in result.table.columns if c != "source_row"])
     frame = result.table.select(
         pl.concat_str([pl.lit(source.name + ":"), pl.col("source_row").cast(pl.String)]).alias("row_id"),
@@ -85,10 +87,9 @@ def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger)
             .otherwise(pl.col("detail"))
         ).to_series()
         ledger.add(rows, step="read", reason=Reason.UNREADABLE, detail=detail)
-    from prep.read.rawbytes import digest
     from prep.read.urls import facts_path, is_url
 
-    sha256, size = digest(source)  # a URL is read through fsspec (prep/read/urls.py)
+    sha256, size = hashing.result()  # a URL is read through fsspec (prep/read/urls.py)
     facts = SourceFacts(
         name=source.name,
         path=facts_path(source.path) if is_url(source.path) else source.path_text,

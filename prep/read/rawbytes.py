@@ -10,8 +10,11 @@ exception as ``__cause__``. The absolute path never appears in a message.
 
 from __future__ import annotations
 
+import contextlib
 import gzip
 import zlib
+from collections.abc import Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any
 
 from prep.errors import InputError
@@ -104,6 +107,23 @@ def digest(source: Any) -> tuple[str, int]:
         if isinstance(exc, OSError):
             raise _os_error(source, exc) from exc
         raise
+
+
+@contextlib.contextmanager
+def digest_beside(source: Any) -> Iterator[Future]:
+    """:func:`digest` of ``source`` started on a thread; the block runs meanwhile (e.g. the parsing).
+
+    ``future.result()`` gives the digest or raises :func:`digest`'s error. hashlib releases the GIL
+    while it hashes large buffers and file reads release it too, so the hashing runs on the other
+    core while a source is parsed (the 1M-row demo's four inputs, 311 MiB, took 1.8 s to hash one
+    after the other, time the reading no longer waits for). The thread is not waited for when the
+    block fails: an error of the read itself is raised at once.
+    """
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="prep-digest")
+    try:
+        yield pool.submit(digest, source)
+    finally:
+        pool.shutdown(wait=False)
 
 
 class Prefix:
