@@ -165,3 +165,90 @@ def test_jsonl_syntax_error_column_counts_from_line_start(make_source):
     expected_column = json.JSONDecodeError("x", text, text.index('{"b"')).colno
     result = read_source(make_source(text, "jsonl"))
     assert result.unreadable["detail"].to_list() == [f"the line is not valid JSON (Extra data at column {expected_column})"]
+
+
+def _tricky_jsonl() -> str:
+    """JSON Lines whose lines the two parsers could read differently, and ordinary ones."""
+    import random
+
+    rng = random.Random(11)
+    lines = [
+        '{"n": 9223372036854775807}', '{"n": -9223372036854775808}', '{"n": 18446744073709551615}',
+        '{"n": 18446744073709551616}', '{"n": -9223372036854775809}', '{"n": 123456789012345678901234567890}',
+        '{"n": 1e400}', '{"n": -1e400}', '{"n": NaN}', '{"n": Infinity}', '{"n": -0}', '{"n": -0.0}', '{"n": 1E5}',
+        '{"n": 2.2250738585072011e-308}', '{"n": 4.9406564584124654e-324}', '{"n": 1e-400}', '{"n": 0.1}',
+        '{"s": "\\ud83d\\ude00"}', '{"s": "a\\u0000b"}', '{"s": "tab\there"}', '{"s": "\x7f"}',
+        '{"b": 1, "a": 2, "b": 3}', '\ufeff{"a": 1}', '  {"a": "padded"}  \r', '{"a": 1} {"a": 2}', '{"a": 1},',
+        '[1, 2]', '"text"', 'null', 'true', '12', '', '   ', '\t\r', '{"a": [1, {"b": null}], "c": {"d": true}}',
+        '[' * 70 + ']' * 70, '[' * 1100 + ']' * 1100, '{"x":' * 63 + '1' + '}' * 63, '{"x":' * 900 + '1' + '}' * 900, '{"x":' * 1010 + '1' + '}' * 1010, '[' * 1010 + ']' * 1010,
+        '{"a": "Ñandú ✓ 😀"}', '{"a": 1,}', "{'a': 1}", '{"a": 01}', '{"a": 1.}', '{"a": .5}',
+    ]
+    for _ in range(500):  # floats (the standard parser reads them)
+        digits = "".join(rng.choice("0123456789") for _ in range(rng.randint(1, 17)))
+        cut = rng.randint(1, len(digits))
+        literal = f"{rng.choice(['', '-'])}{digits[:cut].lstrip('0') or '0'}.{digits[cut:] or '0'}e{rng.randint(-330, 310)}"
+        lines.append(f'{{"f": {literal}, "g": {rng.choice(["0.1", "1.5e-7", str(rng.random())])}}}')
+    for i in range(2000):  # plain objects (orjson reads them): integers up to 64 bits, text, booleans, null
+        n = rng.choice([rng.randint(-(2**63), 2**64 - 1), rng.randint(-1000, 1000), 0])
+        lines.append(json.dumps({"n": n, "s": rng.choice(["x", "Ñandú", "\u2028", "a\"b", ""]), "b": i % 2 == 0, "z": None},
+                                ensure_ascii=rng.random() < 0.5))
+    return "\n".join(lines) + "\n"
+
+
+def test_jsonl_orjson_path_equals_the_standard_parser(make_source, monkeypatch):
+    # Reference: Python's own json module (the standard parser) reading every line; with orjson on,
+    # the table, the unreadable lines (numbers and messages) and the row count must be identical.
+    from prep.read import jsonfile
+
+    if jsonfile._fast_loads is None:
+        pytest.skip("orjson is not installed")
+    taken = []
+    original = jsonfile._fast_line
+    monkeypatch.setattr(jsonfile, "_fast_line", lambda raw: taken.append(raw) or original(raw))
+    text = _tricky_jsonl()
+    fast = read_source(make_source(text, "jsonl"))
+    accepted = [raw for raw in taken if original(raw) is not jsonfile._REFUSED]
+    assert len(accepted) >= 2000  # the fast path was really taken
+    monkeypatch.setattr(jsonfile, "_fast_line", original)
+    monkeypatch.setattr(jsonfile, "_fast_loads", None)
+    slow = read_source(make_source(text, "jsonl"))
+    assert fast.table.equals(slow.table) and fast.table.columns == slow.table.columns
+    assert fast.unreadable.equals(slow.unreadable)
+    assert fast.rows_read == slow.rows_read
+    values = dict(zip(slow.table["source_row"].to_list(), slow.table["n"].to_list()))
+    assert values[3] == "18446744073709551616" and values[5] == "123456789012345678901234567890"  # exact integers kept
+
+
+def test_jsonl_integers_beyond_64_bits_stay_exact(make_source):
+    # Python's json keeps integers of any size (reference: the int built from the literal); orjson
+    # would return a float, so such a line goes to the standard parser.
+    text = '{"n": 1.5}\n{"n": 123456789012345678901}\n{"n": 7}\n'
+    result = read_source(make_source(text, "jsonl"))
+    assert result.table["n"].to_list() == ["1.5", "123456789012345678901", "7"]
+
+
+def test_escaped_lone_surrogates_make_the_record_unreadable(make_source):
+    # RFC 8259 section 8.2: an escape such as "\ud800" without its partner names no Unicode
+    # character, and software receiving it behaves unpredictably. prep sets such a record aside
+    # (it cannot be stored as text); a proper pair ("\ud83d\ude00", U+1F600) is read as the character.
+    text = "\n".join([
+        '{"a": "pair \\ud83d\\ude00"}',
+        '{"a": "lone \\ud800 high"}',
+        '{"a": "lone \\uDFFF low"}',
+        '{"\\udc00key": "x"}',
+        '{"a": "x", "b": {"c": ["\\ud801"]}}',
+        '{"a": "reversed \\ude00\\ud83d"}',
+        '{"a": "fine \\u00e9"}',
+    ]) + "\n"
+    result = read_source(make_source(text, "jsonl"))
+    assert result.table.rows() == [(0, "pair \U0001F600"), (6, "fine é")]
+    assert result.unreadable["line"].to_list() == [2, 3, 4, 5, 6]
+    assert set(result.unreadable["detail"].to_list()) == {
+        "the line holds an escaped lone surrogate (a \\ud800-\\udfff escape without its partner), which is not "
+        "a Unicode character (RFC 8259 section 8.2)"
+    }
+    array = '[{"a": "ok"}, {"a": "lone \\ud800"}, {"a": "\\ud83d\\ude00"}]'
+    result = read_source(make_source(array, "json"))
+    assert result.table.rows() == [(0, "ok"), (2, "\U0001F600")]
+    assert result.unreadable.rows() == [(1, None, "array element 1 holds an escaped lone surrogate (a \\ud800-\\udfff "
+                                         "escape without its partner), which is not a Unicode character (RFC 8259 section 8.2)")]
