@@ -220,6 +220,22 @@ def test_jsonl_with_one_invalid_line(hostile):
     assert frames["set_aside"].filter(pl.col("reason") == "unreadable")["detail"].str.starts_with("line 6: ").to_list() == [True]
 
 
+def test_jsonl_and_json_with_an_escaped_lone_surrogate(hostile):
+    # RFC 8259 section 8.2: "\ud800" without its partner is valid JSON syntax but names no Unicode
+    # character. The record goes to the ledger; the run does not crash.
+    lines = [json.dumps(r) for r in records()]
+    lines[3] = lines[3].replace('"title": "', '"title": "\\ud800 ', 1)
+    assert "\\ud800" in lines[3]
+    outcome = hostile.write({"in.jsonl": "\n".join(lines) + "\n"}, path="in.jsonl").run()
+    frames = outcome.succeeds()
+    details = frames["set_aside"].filter(pl.col("reason") == "unreadable")["detail"].to_list()
+    assert len(details) == 1 and details[0].startswith("line 4: ") and "lone surrogate" in details[0]
+    array = "[" + ",".join(lines) + "]"
+    frames = hostile.write({"in.json": array}, path="in.json").run().succeeds()
+    details = frames["set_aside"].filter(pl.col("reason") == "unreadable")["detail"].to_list()
+    assert len(details) == 1 and "array element 3" in details[0] and "lone surrogate" in details[0]
+
+
 def test_json_array_with_trailing_garbage_is_an_error(hostile):
     data = json.dumps(records(), indent=1) + "\n]}garbage"
     line = hostile.write({"in.json": data}, path="in.json").run().fails(exit_code=1, mentions=["in.json", "line ", "column "])
