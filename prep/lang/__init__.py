@@ -124,6 +124,10 @@ def identify(texts: Sequence[str], backend: str = "cld2", workers: int | None = 
     if backend == "cld2":
         with ThreadPoolExecutor(max_workers=workers) as pool:
             results = list(pool.map(run, chunks))
+    elif multiprocessing.current_process().daemon:
+        # A daemonic process (a Dask worker, for one) may not start processes; it is one of
+        # several workers already, so it does the work itself.
+        results = [run(chunk) for chunk in chunks]
     else:
         # spawn, not fork: the parent holds polars' thread pool, which a fork would copy mid-state.
         context = multiprocessing.get_context("spawn")

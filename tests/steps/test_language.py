@@ -129,6 +129,20 @@ def test_langdetect_backend_in_worker_processes(monkeypatch) -> None:
     assert identify(texts, "langdetect", workers=2) == identify(texts, "langdetect", workers=1) == list(PASSAGES) * 2
 
 
+def test_langdetect_in_a_daemonic_process_works_alone(monkeypatch) -> None:
+    # A Dask worker is a daemonic process, and Python refuses to start a child from one
+    # ("daemonic processes are not allowed to have children"): the pool path must not be taken there.
+    import multiprocessing
+
+    monkeypatch.setattr(prep.lang, "CHUNK", 4)
+    monkeypatch.setattr(prep.lang, "_SERIAL_BELOW", 6)
+    monkeypatch.setitem(multiprocessing.current_process()._config, "daemon", True)
+    with pytest.raises(AssertionError, match="daemonic"):  # what the pool would have met
+        multiprocessing.get_context("spawn").Process(target=print).start()
+    texts = list(PASSAGES.values()) * 2
+    assert identify(texts, "langdetect", workers=2) == list(PASSAGES) * 2
+
+
 _SCRIPT = """
 import json, sys
 import polars as pl
