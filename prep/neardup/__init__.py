@@ -9,10 +9,11 @@ from prep.neardup.clusters import components
 from prep.neardup.exhaustive import EXHAUSTIVE_MAX_ROWS, TooLargeForExhaustive, all_pairs
 from prep.neardup.lsh import candidate_probability, choose_bands
 from prep.neardup.minhash import signatures
-from prep.neardup.search import Found, Settings, find, pair_similarity
+from prep.neardup.search import Found, Settings, find, pair_similarity, similarity_of
 from prep.neardup.shingles import normalise_texts, shingle
 
 __all__ = [
     "EXHAUSTIVE_MAX_ROWS", "Found", "Settings", "TooLargeForExhaustive", "all_pairs", "candidate_probability",
     "choose_bands", "components", "find", "normalise_texts", "pair_similarity", "shingle", "signatures",
+    "similarity_of",
 ]

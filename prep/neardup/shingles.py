@@ -127,17 +127,13 @@ def _chunk_hashes(texts: list[str], kind: str, n: int) -> tuple[np.ndarray, np.n
     :func:`_chunk_hashes_numpy`, computed by the compiled kernels of :mod:`prep.neardup.kernels`."""
     from prep.neardup import kernels
 
+    if kind == "char":
+        shingled = _char_shingles(texts, n)
+        return shingled.counts, shingled.hashes
     m = len(texts)
     cps = np.frombuffer("".join(texts).encode("utf-32-le"), dtype=np.uint32)
     lens = np.fromiter(map(len, texts), dtype=np.int64, count=m)
     text_start = np.cumsum(lens) - lens
-    if kind == "char":
-        counts = np.where(lens >= n, lens - n + 1, (lens > 0).astype(np.int64))
-        offsets = np.zeros(m + 1, dtype=np.int64)
-        np.cumsum(counts, out=offsets[1:])
-        out = np.empty(offsets[m], dtype=np.uint64)
-        kernels.char_shingle_hashes(cps, text_start, lens, offsets, n, _BASE, _LENGTH_SALT, out)
-        return counts, out
     counts, starts, ends = _word_spans(cps, lens, text_start, n)
     return counts, kernels.substring_hashes(cps, starts, ends, _BASE, _LENGTH_SALT)
 

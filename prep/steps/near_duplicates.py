@@ -36,8 +36,7 @@ import polars as pl
 from prep.config import ConfigValueError
 from prep.errors import DataError
 from prep.ledger import Reason
-from prep.neardup import EXHAUSTIVE_MAX_ROWS, Settings, find, normalise_texts
-from prep.neardup.search import similarity_of
+from prep.neardup import EXHAUSTIVE_MAX_ROWS, Settings, find, normalise_texts, similarity_of
 from prep.neardup.report import DUPLICATES_SCHEMA
 from prep.steps.base import StepContext
 from prep.steps.exact_duplicates import _check_columns, _times
@@ -121,7 +120,6 @@ def _preference(table: pl.DataFrame, texts: pl.Series, config: Config) -> np.nda
     return pref
 
 
-
 def sign_ahead(part: pl.DataFrame, config: Config, text_columns: list[str]) -> tuple | None:
     """The band keys and sketches of a partition's compared texts (:func:`prep.neardup.search.sign`),
     for an engine that signs on its workers before the table reaches this step (the step then looks
@@ -133,6 +131,7 @@ def sign_ahead(part: pl.DataFrame, config: Config, text_columns: list[str]) -> t
     if config.method != "minhash_lsh" or any(c not in part.columns for c in columns):
         return None
     return sign(normalise_texts(part, columns, config.punctuation), config.settings())
+
 
 def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame:
     """Mark near-duplicate clusters and set aside all but one row of each; see the module docstring."""
