@@ -54,7 +54,9 @@ def render_again(folder: Path, *, shown: str | None = None) -> list[str]:
         raise CardFileError(f"`{shown}/{CARD_JSON}` is not a JSON object.")
     if card.get("card_version") == "1.1" and "engine" not in card:
         # Version 1.2 only added `engine`; every 1.1 card was written by the local engine.
-        card = {**card, "card_version": CARD_VERSION, "engine": "local"}
+        card = {**card, "card_version": "1.2", "engine": "local"}
+    if card.get("card_version") == "1.2":
+        card = _from_version_1_2(card)
     if card.get("card_version") != CARD_VERSION:
         raise CardFileError(
             f"`{shown}/{CARD_JSON}` has card version {card.get('card_version')!r}; this prep renders version "
@@ -92,3 +94,18 @@ def _replace(path: Path, text: str) -> None:
     except OSError as exc:
         tmp.unlink(missing_ok=True)
         raise OutputError(f"Cannot write `{path.name}` ({exc.strerror}).") from exc
+
+
+def _from_version_1_2(card: dict[str, Any]) -> dict[str, Any]:
+    """Version 1.3 only added ``near_duplicates.signing``: every earlier LSH search signed with
+    k-permutation MinHash, so a 1.2 card that ran it reads ``permutations`` (null otherwise)."""
+    from prep.card import CARD_VERSION
+
+    near = card.get("near_duplicates")
+    if isinstance(near, dict) and near.get("status") != "not run" and "signing" not in near:
+        signing = "permutations" if near.get("method") == "minhash_lsh" else None
+        keys = list(near)
+        at = keys.index("permutations") + 1 if "permutations" in keys else len(keys)
+        near = dict([*near.items()][:at] + [("signing", signing)] + [*near.items()][at:])
+        card = {**card, "near_duplicates": near}
+    return {**card, "card_version": CARD_VERSION}

@@ -105,8 +105,8 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     from prep.neardup import minhash
 
     signed_here = []
-    real_signatures = minhash.signatures
-    monkeypatch.setattr(minhash, "signatures", lambda *a, **k: signed_here.append(1) or real_signatures(*a, **k))
+    real_signatures = minhash.signatures_by
+    monkeypatch.setattr(minhash, "signatures_by", lambda *a, **k: signed_here.append(1) or real_signatures(*a, **k))
     local, control = cluster
     control.write_text("once")
     out = tmp_path / "dask-out"

@@ -27,7 +27,7 @@ from prep.facts import RunFacts
 from prep.ledger import Reason
 from prep.split import min_rows_for_all_splits
 
-CARD_VERSION = "1.2"  # 1.2: the `engine` field
+CARD_VERSION = "1.3"  # 1.2: the `engine` field; 1.3: `near_duplicates.signing`
 TASK_KIND = "single-label classification"
 SPLITS = ("train", "validation", "test")
 ABOUT_FIELDS = ("purpose", "intended_use", "license", "maintainer", "contact")
@@ -56,7 +56,7 @@ LATER_SECTIONS = STEP_SECTIONS
 STEP_FACT_KEYS = {
     "exact_duplicates": ("groups", "rows_removed", "exact_duplicate_rows", "label_conflicts",
                          "label_conflict_rows", "keep", "conflicts", "cluster_sizes"),
-    "near_duplicates": ("method", "shingles", "threshold", "permutations", "bands", "rows",
+    "near_duplicates": ("method", "shingles", "threshold", "permutations", "signing", "bands", "rows",
                         "expected_recall_at_threshold", "candidates", "verified_pairs", "clusters",
                         "rows_in_clusters", "rows_set_aside", "label_conflicts", "cluster_sizes",
                         "action", "keep"),

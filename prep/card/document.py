@@ -472,6 +472,7 @@ def _duplicates(card: dict) -> list[Block]:
                     ("Near duplicates: method", _opt(near.get("method"))),
                     ("Shingles", _opt(shingle_text)),
                     ("Jaccard threshold", _opt(near.get("threshold"))),
+                    ("MinHash signing", _opt(_SIGNING_TEXT.get(near.get("signing")))),
                     ("Permutations, bands × rows", _opt(_band_text(near))),
                     ("Expected recall at the threshold", _opt(near.get("expected_recall_at_threshold"))),
                     ("Candidate pairs, verified pairs", _opt(_pair_text(near))),
@@ -789,6 +790,12 @@ def _missing_cell(r: dict | None) -> str:
         return "–"
     share = r["missing"] / r["rows"] if r["rows"] else 0.0
     return f"{r['missing']} ({share:.0%})"
+
+
+_SIGNING_TEXT = {
+    "one_permutation": "one permutation hashing, optimal densification (Li et al. 2012; Shrivastava 2017)",
+    "permutations": "one hash function per permutation (Broder 1997)",
+}
 
 
 def _band_text(near: dict) -> str | None:

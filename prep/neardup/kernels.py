@@ -115,6 +115,48 @@ def minhash(hashes, offsets, a, b):
     return out
 
 
+@njit(inline="always")
+def _fast_range(x, k):
+    """Lemire's multiply-shift reduction of the high 32 bits of ``x`` to [0, k)."""
+    return ((x >> uint64(32)) * uint64(k)) >> uint64(32)
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def one_permutation_minhash(hashes, offsets, k, salt, densify_salt):
+    """uint32 (texts x k): one permutation hashing with optimal densification (the definition is
+    :func:`prep.neardup.minhash.one_permutation_signatures_numpy`); 0xFFFFFFFF for a text without
+    shingles."""
+    m = offsets.size - 1
+    out = np.empty((m, k), dtype=np.uint32)
+    unset = uint64(1) << uint64(32)
+    items = (m + _TEXTS_PER_ITEM - 1) // _TEXTS_PER_ITEM
+    for it in prange(items):
+        buf = np.empty(k, dtype=np.uint64)
+        for t in range(it * _TEXTS_PER_ITEM, min(m, (it + 1) * _TEXTS_PER_ITEM)):
+            if offsets[t + 1] == offsets[t]:
+                for p in range(k):
+                    out[t, p] = np.uint32(0xFFFFFFFF)
+                continue
+            for p in range(k):
+                buf[p] = unset
+            for s in range(offsets[t], offsets[t + 1]):
+                g = _splitmix(hashes[s] ^ salt)
+                v = g & uint64(0xFFFFFFFF)
+                b = _fast_range(g, k)
+                if v < buf[b]:
+                    buf[b] = v
+            for p in range(k):
+                v = buf[p]
+                attempt = uint64(1)
+                while v == unset:  # an empty bin takes the value of the first non-empty bin it probes
+                    c = _fast_range(_splitmix(densify_salt ^ (uint64(p) << uint64(32)) ^ attempt), k)
+                    if buf[c] != unset:
+                        v = buf[c]
+                    attempt += uint64(1)
+                out[t, p] = np.uint32(v)
+    return out
+
+
 @njit(cache=True, nogil=True, parallel=True)
 def band_keys(sigs, bands, rows):
     """uint64 (texts x bands): key = band + 1, then for each row j of the band

@@ -13,15 +13,33 @@ fixed text (RFC 7693), so signatures are stable across runs, machines and librar
 :func:`signatures` runs a compiled kernel (:mod:`prep.neardup.kernels`); :func:`signatures_numpy`
 is the same computation in vectorised numpy (blocks of whole texts, each a (shingles x k) matrix
 reduced per text with ``np.minimum.reduceat``), kept as the reference the kernel is tested against.
+
+One permutation hashing (the default signing of the near-duplicate step) gets k values from one
+hash per shingle instead of k (Li, Owen, Zhang 2012, "One Permutation Hashing", NIPS): a shingle's
+hash g picks one of k bins (its high 32 bits) and its value there (its low 32 bits); each bin keeps
+its smallest value. Two sets agree in a non-empty bin with probability J. A bin no shingle fell in
+takes the value of a non-empty bin chosen by probing a fixed sequence of bins, the same sequence
+for every text ("optimal densification", Shrivastava 2017, "Optimal Densification for Fast and
+Accurate Minwise Hashing", ICML), after which every position agrees with probability J exactly, as
+in k-permutation MinHash. Its estimate has a smaller variance than Broder's when a set has far more
+shingles than k (bins are filled without replacement) and a larger one when it has far fewer (several
+bins copy the same value); the LSH banding treats both alike. Measured against the exhaustive oracle
+on 20,000 demo tickets (title + body, and titles alone; thresholds 0.8, 0.7, 0.5) its recall
+equalled the k-permutation signatures' to within one pair in 2,500 and it gave fewer candidates,
+at a tenth of the signing time (``tests/bench/test_bench_neardup.py``).
 """
 
 from __future__ import annotations
 
 import hashlib
+from typing import Literal
 
 import numpy as np
 
-from prep.neardup.shingles import Shingled
+from prep.neardup.shingles import Shingled, splitmix64
+
+Signing = Literal["one_permutation", "permutations"]
+DEFAULT_SIGNING: Signing = "one_permutation"
 
 DEFAULT_PERMUTATIONS = 128
 # Seed text for the hash coefficients; changing it changes every signature (and nothing else).
@@ -45,6 +63,64 @@ def signatures(shingled: Shingled, k: int = DEFAULT_PERMUTATIONS, seed: str = HA
 
     a, b = coefficients(k, seed)
     return kernels.minhash(shingled.hashes, shingled.offsets, a, b)
+
+
+def one_permutation_salts(seed: str = HASH_SEED) -> tuple[np.uint64, np.uint64]:
+    """(bin salt, densification salt): two 64-bit words from BLAKE2b(seed) (RFC 7693)."""
+    raw = hashlib.blake2b(f"{seed}\x1fone-permutation".encode(), digest_size=16).digest()
+    words = np.frombuffer(raw, dtype="<u8")
+    return np.uint64(words[0]), np.uint64(words[1])
+
+
+def one_permutation_signatures(shingled: Shingled, k: int = DEFAULT_PERMUTATIONS, seed: str = HASH_SEED) -> np.ndarray:
+    """uint32 array (texts x k) by one permutation hashing with optimal densification (see the
+    module docstring); rows of texts without shingles are all EMPTY."""
+    from prep.neardup import kernels
+
+    salt, densify_salt = one_permutation_salts(seed)
+    return kernels.one_permutation_minhash(shingled.hashes, shingled.offsets, k, salt, densify_salt)
+
+
+def one_permutation_signatures_numpy(shingled: Shingled, k: int = DEFAULT_PERMUTATIONS, seed: str = HASH_SEED) -> np.ndarray:
+    """:func:`one_permutation_signatures` in numpy, the definition the kernel is tested against.
+
+    g = splitmix64(fingerprint XOR salt); bin = (high 32 bits of g) * k >> 32 (Lemire's reduction),
+    value = low 32 bits of g; a bin keeps its smallest value. An empty bin p probes bins
+    c_a = reduce(splitmix64(densify_salt XOR (p << 32) XOR a)) for a = 1, 2, ... and takes the value
+    of the first non-empty one (probing only bins that a shingle filled)."""
+    salt, densify_salt = one_permutation_salts(seed)
+    offsets = shingled.offsets
+    m = offsets.size - 1
+    unset = np.uint64(1 << 32)
+    bins = np.full((m, k), unset, dtype=np.uint64)
+    counts = np.diff(offsets)
+    owner = np.repeat(np.arange(m, dtype=np.int64), counts)
+    g = splitmix64(shingled.hashes ^ salt)
+    value = g & np.uint64(0xFFFFFFFF)
+    b = (((g >> np.uint64(32)) * np.uint64(k)) >> np.uint64(32)).astype(np.int64)
+    flat = bins.reshape(-1)
+    np.minimum.at(flat, owner * k + b, value)
+    out = bins.copy()
+    rows, cols = np.nonzero((bins == unset) & (counts > 0)[:, None])
+    attempt = np.uint64(1)
+    with np.errstate(over="ignore"):
+        while rows.size:  # one iteration per probe round, over all empty bins still unfilled
+            probe = splitmix64(densify_salt ^ (cols.astype(np.uint64) << np.uint64(32)) ^ attempt)
+            c = (((probe >> np.uint64(32)) * np.uint64(k)) >> np.uint64(32)).astype(np.int64)
+            got = bins[rows, c]
+            hit = got != unset
+            out[rows[hit], cols[hit]] = got[hit]
+            rows, cols = rows[~hit], cols[~hit]
+            attempt += np.uint64(1)
+    out[counts == 0] = np.uint64(EMPTY)
+    return out.astype(np.uint32)
+
+
+def signatures_by(shingled: Shingled, k: int, signing: Signing) -> np.ndarray:
+    """The signatures of ``shingled`` by the named method."""
+    if signing == "one_permutation":
+        return one_permutation_signatures(shingled, k)
+    return signatures(shingled, k)
 
 
 def signatures_numpy(shingled: Shingled, k: int = DEFAULT_PERMUTATIONS, seed: str = HASH_SEED) -> np.ndarray:

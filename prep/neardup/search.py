@@ -44,6 +44,7 @@ class Settings:
     shingles: Literal["char", "word"] = "char"
     n: int | None = None
     permutations: int = minhash.DEFAULT_PERMUTATIONS
+    signing: minhash.Signing = minhash.DEFAULT_SIGNING
     bands: int | None = None
     rows: int | None = None
     target_recall: float = lsh.DEFAULT_TARGET_RECALL
@@ -215,7 +216,7 @@ def _band_keys(
     values = texts.gather(todo).to_list() if todo.size < m else texts.to_list()
     for lo in range(0, todo.size, SIGN_CHUNK_TEXTS):  # one iteration per chunk of texts
         chunk = shingle(values[lo:lo + SIGN_CHUNK_TEXTS], settings.shingles, settings.shingle_n)
-        sigs = minhash.signatures(chunk, settings.permutations)
+        sigs = minhash.signatures_by(chunk, settings.permutations, settings.signing)
         at = todo[lo:lo + sigs.shape[0]]
         sizes, sketch, excess = kernels.set_sketches(chunk.hashes, chunk.offsets)
         signed.put(at, _Signed(lsh.band_keys(sigs, bands, rows), chunk.counts > 0, sizes, sketch, excess))
@@ -233,7 +234,7 @@ def _bands(settings: Settings) -> tuple[int, int, float]:
 
 def _key_params(settings: Settings, bands: int, rows: int) -> tuple:
     """What band keys and sketches depend on, besides the text."""
-    return (settings.shingles, settings.shingle_n, settings.permutations, bands, rows)
+    return (settings.shingles, settings.shingle_n, settings.permutations, settings.signing, bands, rows)
 
 
 def _pair_params(settings: Settings, bands: int, rows: int) -> tuple:
@@ -403,7 +404,7 @@ def find(
     else:
         bands, rows, p_at = _bands(settings)
         facts.update(
-            permutations=settings.permutations, bands=bands, rows=rows, expected_recall_at_threshold=round(p_at, 6)
+            permutations=settings.permutations, signing=settings.signing, bands=bands, rows=rows, expected_recall_at_threshold=round(p_at, 6)
         )
         pair_params = _pair_params(settings, bands, rows)
         known = _MEMO.pairs_among(pair_params, rep_texts) if reuse_pairs else None

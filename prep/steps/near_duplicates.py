@@ -6,7 +6,8 @@ whitespace collapsed. Two rows are near duplicates when the Jaccard similarity o
 sets (character n-grams, default n=5, or word n-grams) is at least ``threshold`` (default 0.8),
 or, with ``similarity: edit``, when rapidfuzz's normalised Indel similarity is.
 
-``method: minhash_lsh`` (default) finds candidate pairs with MinHash and LSH banding, b and r
+``method: minhash_lsh`` (default) finds candidate pairs with MinHash (``signing: one_permutation``,
+the default, or ``permutations``; see :mod:`prep.neardup.minhash`) and LSH banding, b and r
 chosen so that a pair exactly at the threshold becomes a candidate with probability >=
 ``target_recall`` (0.99), and verifies every candidate exactly: no reported pair is below the
 threshold. ``method: exhaustive`` compares all pairs (at most
@@ -58,6 +59,7 @@ class Config:
     punctuation: Literal["space", "remove", "keep"] = "space"
     threshold: float = 0.8
     permutations: int = 128
+    signing: Literal["one_permutation", "permutations"] = "one_permutation"
     bands: int | None = None
     rows: int | None = None
     target_recall: float = 0.99
@@ -95,7 +97,7 @@ class Config:
         return Settings(
             threshold=self.threshold, shingles=self.shingles, n=self.n, permutations=self.permutations,
             bands=self.bands, rows=self.rows, target_recall=self.target_recall, method=self.method,
-            similarity=self.similarity,
+            similarity=self.similarity, signing=self.signing,
         )
 
 
@@ -242,7 +244,7 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
     ctx.report("similarity", config.similarity)
     ctx.report("threshold", config.threshold)
     if config.method == "minhash_lsh":
-        for key in ("permutations", "bands", "rows", "expected_recall_at_threshold", "large_buckets"):
+        for key in ("permutations", "signing", "bands", "rows", "expected_recall_at_threshold", "large_buckets"):
             ctx.report(key, facts[key])
     ctx.report("candidates", facts["candidates"])
     ctx.report("verified_pairs", facts["verified_pairs"] + facts["identical_copies"])

@@ -40,7 +40,7 @@ def test_schema_is_a_valid_draft_2020_12_schema():
     schema = card_schema()
     assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"
     Draft202012Validator.check_schema(schema)
-    assert schema["properties"]["card_version"] == {"const": CARD_VERSION} == {"const": "1.2"}
+    assert schema["properties"]["card_version"] == {"const": CARD_VERSION} == {"const": "1.3"}
     # The schema and the builder agree on the sections.
     assert set(schema["required"]) == set(schema["properties"]) == set(SECTION_ORDER)
 
@@ -77,7 +77,7 @@ def test_schema_rejects_broken_cards(make_facts, breakage):
 def test_top_level_keys_in_order(make_facts):
     card = build_card(make_facts())
     assert list(card) == list(SECTION_ORDER)
-    assert card["card_version"] == "1.2"
+    assert card["card_version"] == "1.3"
     assert card["task"] == {"kind": "single-label classification", "label_column": "label", "text_columns": ["title", "body"]}
 
 

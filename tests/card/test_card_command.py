@@ -85,3 +85,20 @@ def test_a_version_1_1_card_is_rendered_as_written_by_the_local_engine(demo_outp
     result = CliRunner().invoke(cli, ["card", str(out)])
     assert result.exit_code == 0, result.output
     assert (out / "card.html").read_bytes() == (demo_output / "card.html").read_bytes()
+
+
+def test_a_version_1_2_card_reads_k_permutation_signing(demo_output, tmp_path):
+    # card_version 1.2 is 1.3 without `near_duplicates.signing`; every LSH search before 1.3 signed
+    # with one hash function per permutation.
+    import json
+
+    out = copy_output(demo_output, tmp_path)
+    card = json.loads((out / "card.json").read_text(encoding="utf-8"))
+    assert card["near_duplicates"].pop("signing") == "one_permutation"
+    card["card_version"] = "1.2"
+    (out / "card.json").write_text(json.dumps(card, indent=2), encoding="utf-8")
+    result = CliRunner().invoke(cli, ["card", str(out)])
+    assert result.exit_code == 0, result.output
+    text = (out / "card.md").read_text(encoding="utf-8")
+    assert "one hash function per permutation (Broder 1997)" in text
+    assert "one permutation hashing, optimal densification" in (demo_output / "card.md").read_text(encoding="utf-8")

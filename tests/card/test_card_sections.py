@@ -20,6 +20,7 @@ from prep.facts import StepFacts
 
 NEAR = {
     "method": "minhash_lsh", "shingles": {"kind": "char", "n": 5}, "threshold": 0.8, "permutations": 128,
+    "signing": "one_permutation",
     "bands": 16, "rows": 8, "expected_recall_at_threshold": 0.97, "candidates": 40, "verified_pairs": 12,
     "clusters": 5, "rows_in_clusters": 14, "rows_set_aside": 9, "label_conflicts": 2,
     "cluster_sizes": [{"size": 2, "clusters": 3}, {"size": 4, "clusters": 2}], "action": "set_aside", "keep": "first",

@@ -76,6 +76,13 @@ def test_minhash_kernel_equals_the_numpy_definition(k):
     assert np.array_equal(minhash.signatures(sh, k), minhash.signatures_numpy(sh, k))
 
 
+@pytest.mark.parametrize("k", [1, 7, 128])
+def test_one_permutation_kernel_equals_the_numpy_definition(k):
+    sh = shingle(_texts(k + 1, 400, 200))
+    assert (sh.counts == 0).any() and (sh.counts < k).any()  # empty texts, and texts that leave bins empty
+    assert np.array_equal(minhash.one_permutation_signatures(sh, k), minhash.one_permutation_signatures_numpy(sh, k))
+
+
 @pytest.mark.parametrize("bands, rows", [(21, 6), (1, 1), (3, 5)])
 def test_band_key_kernel_equals_the_numpy_definition(bands, rows):
     rng = np.random.default_rng(bands)
@@ -333,7 +340,7 @@ def test_search_verifies_the_same_pairs_as_verifying_every_candidate(threshold):
     found = find(distinct, settings)
     b, r, _ = lsh.choose_bands(threshold, settings.permutations)
     sh = shingle(distinct)
-    ci, cj, _ = lsh.candidate_pairs(minhash.signatures(sh), b, r, active=sh.counts > 0)
+    ci, cj, _ = lsh.candidate_pairs(minhash.signatures_by(sh, settings.permutations, settings.signing), b, r, active=sh.counts > 0)
     sim = verify.jaccard_pairs(sh, ci, cj)
     ok = sim >= threshold
     assert found.facts["candidates"] == ci.size
