@@ -10,6 +10,7 @@ import datetime as _dt
 import os
 import time
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -60,13 +61,22 @@ class RunResult:
         return f"rows read {self.rows_read:,} {'=' if ok else '≠'} {parts} + set aside {self.set_aside:,}"
 
 
-def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger) -> tuple[pl.DataFrame, SourceFacts]:
+def _parse_source(pipeline: Pipeline, source: Source) -> tuple[Any, tuple[str, int]]:
+    """(the reader's result, (SHA-256, bytes)) of one source; touches nothing shared."""
     from prep.read import read_source
     from prep.read.rawbytes import digest_beside
-    from prep.check import require_columns
 
     with digest_beside(source) as hashing:  # the input's SHA-256, on a thread while it is parsed
         result = read_source(source, on_unreadable=pipeline.on_unreadable)
+    return result, hashing.result()  # a URL is read through fsspec (prep/read/urls.py)
+
+
+def _read_source(
+    pipeline: Pipeline, index: int, source: Source, ledger: Ledger, parsed: tuple[Any, tuple[str, int]] | None = None
+) -> tuple[pl.DataFrame, SourceFacts]:
+    from prep.check import require_columns
+
+    result, (sha256, size) = parsed if parsed is not None else _parse_source(pipeline, source)
     require_columns(pipeline, index, source, [c for c in result.table.columns if c != "source_row"])
     frame = result.table.select(
         pl.concat_str([pl.lit(source.name + ":"), pl.col("source_row").cast(pl.String)]).alias("row_id"),
@@ -89,7 +99,6 @@ def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger)
         ledger.add(rows, step="read", reason=Reason.UNREADABLE, detail=detail)
     from prep.read.urls import facts_path, is_url
 
-    sha256, size = hashing.result()  # a URL is read through fsspec (prep/read/urls.py)
     facts = SourceFacts(
         name=source.name,
         path=facts_path(source.path) if is_url(source.path) else source.path_text,
@@ -107,12 +116,25 @@ def _read_source(pipeline: Pipeline, index: int, source: Source, ledger: Ledger)
 def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) -> tuple[pl.DataFrame, list[SourceFacts]]:
     """All sources as one canonical table (provenance first, then canonical columns), plus facts per source."""
     frames, facts = [], []
-    for i, source in enumerate(pipeline.sources):
-        t0 = time.perf_counter()
-        frame, f = _read_source(pipeline, i, source, ledger)
-        frames.append(frame)
-        facts.append(f)
-        report("read", source=source.name, rows=f.rows_read, unreadable=f.rows_unreadable, seconds=time.perf_counter() - t0)
+    sources = pipeline.sources
+    # Sources are parsed two at a time when there are two cores (the CSV scanner, polars and the
+    # digests release the GIL, so a JSON Lines file parses beside them); what they add to the
+    # ledger and the facts is taken in pipeline order, and the first failing source in that order
+    # is the error reported.
+    workers = min(2, len(sources), os.cpu_count() or 1)
+    pool = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
+    try:
+        parsing = [pool.submit(_parse_source, pipeline, s) for s in sources] if pool else None
+        for i, source in enumerate(sources):
+            t0 = time.perf_counter()
+            parsed = parsing[i].result() if parsing else None
+            frame, f = _read_source(pipeline, i, source, ledger, parsed)
+            frames.append(frame)
+            facts.append(f)
+            report("read", source=source.name, rows=f.rows_read, unreadable=f.rows_unreadable, seconds=time.perf_counter() - t0)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=True, cancel_futures=True)
     columns = [*PROVENANCE_COLUMNS, *pipeline.canonical_columns]
     aligned = []
     for frame in frames:

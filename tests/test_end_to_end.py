@@ -87,3 +87,41 @@ def test_no_exact_text_leakage_between_splits(demo_runs):
         )
     assert not (keys[0] & keys[1]) and not (keys[0] & keys[2]) and not (keys[1] & keys[2])
     assert card["leakage"]["total"] == 0
+
+
+def test_sources_parsed_side_by_side_give_what_one_at_a_time_gives(monkeypatch):
+    # With two cores the runner parses two sources at once; the table, the ledger (unreadable
+    # records) and the source facts must be those of reading them one after another.
+    import os
+
+    from prep.ledger import Ledger
+    from prep.run import read_sources
+
+    pipeline = load_pipeline(DEMO_PIPELINE)
+    monkeypatch.setattr(os, "cpu_count", lambda: 2)
+    side_ledger = Ledger()
+    side_table, side_facts = read_sources(pipeline, side_ledger)
+    monkeypatch.setattr(os, "cpu_count", lambda: 1)
+    one_ledger = Ledger()
+    one_table, one_facts = read_sources(pipeline, one_ledger)
+    assert one_ledger.frame().height > 0  # the demo has unreadable records
+    assert side_table.equals(one_table)
+    assert side_ledger.frame().equals(one_ledger.frame())
+    assert side_facts == one_facts
+
+
+def test_the_first_failing_source_in_pipeline_order_is_the_error(small_pipeline, monkeypatch):
+    # Both sources are broken; whichever parse finishes first, the error names the first source.
+    import os
+
+    from prep.errors import PrepError
+    from prep.ledger import Ledger
+    from prep.run import read_sources
+
+    folder = small_pipeline.parent
+    (folder / "desk.csv").write_text("Case,Subject\nx,y\n", encoding="utf-8")  # mapped columns missing
+    (folder / "web.jsonl").write_text("[1, 2]\n" * 3, encoding="utf-8")  # no JSON object on any line
+    monkeypatch.setattr(os, "cpu_count", lambda: 2)
+    with pytest.raises(PrepError) as caught:
+        read_sources(load_pipeline(small_pipeline), Ledger())
+    assert "desk.csv" in str(caught.value) and "web.jsonl" not in str(caught.value)

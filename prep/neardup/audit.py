@@ -43,10 +43,10 @@ def leakage_audit(
         parts.append(pl.DataFrame({"t": text, "s": pl.Series([name] * frame.height)}))
     table = pl.concat(parts) if parts else pl.DataFrame(schema={"t": pl.String, "s": pl.String})
     table = table.filter(pl.col("t") != "")
-    per_text = (
-        table.group_by("t")
-        .agg(*[(pl.col("s") == name).sum().cast(pl.Int64).alias(name) for name in SPLITS])
-        .sort("t")
+    # First-appearance order (the counts below do not depend on the order; sorting 570k texts at 1M
+    # rows took 1.7 s, keeping the order 0.3 s).
+    per_text = table.group_by("t", maintain_order=True).agg(
+        *[(pl.col("s") == name).sum().cast(pl.Int64).alias(name) for name in SPLITS]
     )
     method = settings.method
     if method == "exhaustive" and per_text.height > EXHAUSTIVE_MAX_ROWS:
