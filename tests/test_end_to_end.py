@@ -125,3 +125,68 @@ def test_the_first_failing_source_in_pipeline_order_is_the_error(small_pipeline,
     with pytest.raises(PrepError) as caught:
         read_sources(load_pipeline(small_pipeline), Ledger())
     assert "desk.csv" in str(caught.value) and "web.jsonl" not in str(caught.value)
+
+
+def test_a_read_only_after_split_step_beside_the_next_keeps_file_order(small_pipeline, monkeypatch):
+    # A READ_ONLY after-split step runs on a thread while the next step goes on; its facts, timing,
+    # outputs and progress event still come in file order, and the next step sees the same splits.
+    import dataclasses
+    import threading
+    import types
+
+    import prep.run as run_module
+    from prep.ledger import Ledger
+    from prep.pipeline import StepSpec
+
+    started = threading.Event()
+    seen = {}
+
+    def slow_apply(splits, config, ctx):
+        started.set()
+        threading.Event().wait(0.3)  # still running when the next step has finished
+        ctx.report("mark", "slow")
+        ctx.add_output("slow_output", pl.DataFrame({"a": [1]}))
+        return splits
+
+    def next_apply(splits, config, ctx):
+        assert started.wait(5)
+        seen["splits"] = splits
+        ctx.report("mark", "next")
+        return splits
+
+    modules = {
+        "slow": types.SimpleNamespace(PHASE="splits", READ_ONLY=True, apply_splits=slow_apply),
+        "next": types.SimpleNamespace(PHASE="splits", apply_splits=next_apply),
+    }
+    monkeypatch.setattr(run_module, "step_module", lambda name: modules[name])
+    monkeypatch.setattr(run_module, "_overlap_possible", lambda: True)
+    pipeline = dataclasses.replace(
+        load_pipeline(small_pipeline), steps=[StepSpec("slow", None, "steps[0].slow", None), StepSpec("next", None, "steps[1].next", None)]
+    )
+    splits = {s: pl.DataFrame({"row_id": [f"{s}:0"]}) for s in SPLITS}
+    events = []
+    out, facts, timings, outputs = run_module.apply_steps(
+        pipeline, splits, Ledger(), lambda kind, **kw: events.append(kw["step"]), phase="splits"
+    )
+    assert out is splits and seen["splits"] is splits
+    assert [f.name for f in facts] == [t.name for t in timings] == events == ["slow", "next"]
+    assert [f.facts["mark"] for f in facts] == ["slow", "next"]
+    assert timings[0].seconds >= 0.3 and list(outputs) == ["slow_output"]
+
+    # A READ_ONLY step that changes the splits is a bug, and the run says so.
+    modules["slow"] = types.SimpleNamespace(PHASE="splits", READ_ONLY=True,
+                                            apply_splits=lambda s, c, ctx: {**s, "train": s["train"].with_columns(pl.lit("x").alias("row_id"))})
+    with pytest.raises(AssertionError, match="READ_ONLY"):
+        run_module.apply_steps(pipeline, splits, Ledger(), phase="splits")
+
+
+def test_the_demo_with_no_step_beside_another_gives_the_same_bytes(demo_output, tmp_path, monkeypatch):
+    # The session's demo run overlaps baseline with suspect_labels where the machine allows it
+    # (two cores, a thread-safe numba layer); one after the other must give the same files.
+    import prep.run as run_module
+
+    monkeypatch.setattr(run_module, "_overlap_possible", lambda: False)
+    out = tmp_path / "one-by-one"
+    run_pipeline(load_pipeline(DEMO_PIPELINE), out=out)
+    for name in (*BYTE_IDENTICAL, "baseline_predictions.parquet", "suspect_labels.parquet", "duplicates.parquet"):
+        assert (out / name).read_bytes() == (demo_output / name).read_bytes(), name

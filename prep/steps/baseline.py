@@ -49,6 +49,8 @@ from prep.steps.base import StepContext
 
 NAME = "baseline"
 PHASE = "splits"
+# Returns the splits it got and sets nothing aside: the runner may run it beside the next steps.
+READ_ONLY = True
 
 # Defaults. Bounded run time: at 20,000 rows, 5 epochs of SGD took about 13 s on one busy core here
 # (hashing the n-grams with scikit-learn's analyzers took another 15 s; prep.features does it in
