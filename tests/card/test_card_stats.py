@@ -287,3 +287,20 @@ def test_leakage_matches_exhaustive_pairwise_comparison():
     assert list(itertools.chain.from_iterable(p["splits"] for p in result["pairs"])) == [
         "train", "validation", "train", "test", "validation", "test"
     ]
+
+
+def test_leakage_keys_on_slices_equal_keys_in_one_piece(monkeypatch):
+    # Keys are a function of their row alone: computed on two slices on two threads they must be
+    # those of the whole frame, in order (empty texts dropped in both).
+    import prep.text
+
+    from prep.card.stats import _keys, _keys_by_slices
+
+    monkeypatch.setattr(prep.text, "usable_cores", lambda: 2)
+    rows = 60_001  # above the size where slicing starts, odd so the slices differ in length
+    titles = [["  Refund\tplease ", None, "ÉCHEC  du  paiement", ""][i % 4] for i in range(rows)]
+    bodies = [[f"ride {i}", "", None, "Straße\u00a0zu"][i % 4] for i in range(rows)]
+    frame = pl.DataFrame({"title": titles, "body": bodies}, schema={"title": pl.String, "body": pl.String})
+    whole = _keys(frame, ["title", "body"])
+    assert whole.height < rows  # some rows have no text at all
+    assert _keys_by_slices(frame, ["title", "body"]).equals(whole)

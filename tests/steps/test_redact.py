@@ -333,3 +333,25 @@ def test_references_agree_on_checks() -> None:
     # prep's wrappers agree with python-stdnum on a handful of values, both ways.
     for value in ["GB82WEST12345698765432", "GB82WEST12345698765433", "FR1420041010050500013M02606", "NO9386011117947"]:
         assert is_iban(value) == stdnum_iban.is_valid(value)
+
+
+def test_redacting_on_slices_equals_redacting_in_one_piece(monkeypatch):
+    # The regex scans run on row slices on two threads from 50,000 rows on; every row's result
+    # depends on that row alone, so one core and two must give the same column and counts.
+    import prep.text
+    from prep.steps.redact import Config, redact_column
+
+    rows = 60_001
+    values = [
+        [f"mail ana.{i}@example.org now", None, "card 4111 1111 1111 1111 twice", "call +44 20 7946 0958",
+         "iban GB82 WEST 1234 5698 7654 32", "nothing here", ""][i % 7]
+        for i in range(rows)
+    ]
+    series = pl.Series("body", values, dtype=pl.String)
+    config = Config(kinds=["email", "phone", "card", "iban"], regions=["GB", "US"])
+    monkeypatch.setattr(prep.text, "usable_cores", lambda: 1)
+    one, one_counts = redact_column(series, config)
+    monkeypatch.setattr(prep.text, "usable_cores", lambda: 2)
+    two, two_counts = redact_column(series, config)
+    assert one_counts == two_counts and min(one_counts.values()) > 0
+    assert one.equals(two) and not one.equals(series)
