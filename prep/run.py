@@ -122,6 +122,9 @@ def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) 
     # ledger and the facts is taken in pipeline order, and the first failing source in that order
     # is the error reported.
     workers = min(2, len(sources), os.cpu_count() or 1)
+    import prep.read  # noqa: F401  (the readers, imported here: two threads importing one module at once can fail)
+    import prep.read.rawbytes  # noqa: F401
+
     pool = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
     try:
         parsing = [pool.submit(_parse_source, pipeline, s) for s in sources] if pool else None
@@ -231,7 +234,12 @@ def apply_steps(
                 continue
             module = step_module(spec.name)
             if phase == "splits" and getattr(module, "READ_ONLY", False) and _overlap_possible():
-                pool = pool or ThreadPoolExecutor(max_workers=1)
+                if pool is None:
+                    # Imports happen here, on this thread, before two steps run at once: two
+                    # threads importing the same package's cyclic modules fail (scikit-learn).
+                    for other in pipeline.steps:
+                        getattr(step_module(other.name), "preload", lambda: None)()
+                    pool = ThreadPoolExecutor(max_workers=1)
                 done.append(pool.submit(_apply_read_only, pipeline, spec, module, data))
                 continue
             data, record = _apply_one(pipeline, spec, module, data, ledger, phase)

@@ -154,9 +154,14 @@ def test_a_read_only_after_split_step_beside_the_next_keeps_file_order(small_pip
         ctx.report("mark", "next")
         return splits
 
+    preloaded = []
+
+    def preload(name):
+        return lambda: preloaded.append((name, threading.get_ident(), started.is_set()))
+
     modules = {
-        "slow": types.SimpleNamespace(PHASE="splits", READ_ONLY=True, apply_splits=slow_apply),
-        "next": types.SimpleNamespace(PHASE="splits", apply_splits=next_apply),
+        "slow": types.SimpleNamespace(PHASE="splits", READ_ONLY=True, apply_splits=slow_apply, preload=preload("slow")),
+        "next": types.SimpleNamespace(PHASE="splits", apply_splits=next_apply, preload=preload("next")),
     }
     monkeypatch.setattr(run_module, "step_module", lambda name: modules[name])
     monkeypatch.setattr(run_module, "_overlap_possible", lambda: True)
@@ -172,6 +177,8 @@ def test_a_read_only_after_split_step_beside_the_next_keeps_file_order(small_pip
     assert [f.name for f in facts] == [t.name for t in timings] == events == ["slow", "next"]
     assert [f.facts["mark"] for f in facts] == ["slow", "next"]
     assert timings[0].seconds >= 0.3 and list(outputs) == ["slow_output"]
+    # Every step's imports ran on the calling thread, before the read-only step started.
+    assert preloaded == [("slow", threading.get_ident(), False), ("next", threading.get_ident(), False)]
 
     # A READ_ONLY step that changes the splits is a bug, and the run says so.
     modules["slow"] = types.SimpleNamespace(PHASE="splits", READ_ONLY=True,
@@ -190,3 +197,45 @@ def test_the_demo_with_no_step_beside_another_gives_the_same_bytes(demo_output, 
     run_pipeline(load_pipeline(DEMO_PIPELINE), out=out)
     for name in (*BYTE_IDENTICAL, "baseline_predictions.parquet", "suspect_labels.parquet", "duplicates.parquet"):
         assert (out / name).read_bytes() == (demo_output / name).read_bytes(), name
+
+
+def test_after_split_imports_are_done_before_two_steps_run_at_once():
+    # baseline and suspect_labels import scikit-learn when they start; run side by side, their first
+    # imports met and failed ("cannot import name 'clone' from partially initialized module
+    # 'sklearn.base'", at 500k rows; two threads importing these modules at once failed 8 times in 8
+    # here). After the steps' preload, the same two-thread imports must succeed.
+    import subprocess
+    import sys
+    import textwrap
+
+    script = textwrap.dedent(
+        """
+        import threading
+        from prep.steps import baseline, suspect_labels
+        baseline.preload()
+        suspect_labels.preload()
+        errors = []
+        def first():
+            try:
+                from sklearn.feature_extraction.text import TfidfTransformer
+                from sklearn.linear_model import SGDClassifier
+                from sklearn.metrics import f1_score
+            except Exception as exc:
+                errors.append(repr(exc))
+        def second():
+            try:
+                from sklearn.model_selection import StratifiedKFold
+                from sklearn.linear_model import SGDClassifier
+                from sklearn.feature_extraction.text import TfidfTransformer
+            except Exception as exc:
+                errors.append(repr(exc))
+        threads = [threading.Thread(target=first), threading.Thread(target=second)]
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join()
+        print(errors or "ok")
+        """
+    )
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0 and done.stdout.strip() == "ok", done.stdout + done.stderr

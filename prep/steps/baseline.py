@@ -52,6 +52,21 @@ PHASE = "splits"
 # Returns the splits it got and sets nothing aside: the runner may run it beside the next steps.
 READ_ONLY = True
 
+
+def preload() -> None:
+    """Import what this step and ``suspect_labels`` import when they run. The runner calls it on
+    its own thread before running this step beside the next one: scikit-learn's modules import
+    each other in cycles, and two threads importing them at once fail with "partially initialized
+    module" (seen at 500k rows: baseline's first import met suspect_labels')."""
+    import scipy.sparse  # noqa: F401
+    import sklearn.exceptions  # noqa: F401
+    import sklearn.feature_extraction.text  # noqa: F401
+    import sklearn.linear_model  # noqa: F401
+    import sklearn.metrics  # noqa: F401
+    import sklearn.model_selection  # noqa: F401
+
+    import prep.features  # noqa: F401
+
 # Defaults. Bounded run time: at 20,000 rows, 5 epochs of SGD took about 13 s on one busy core here
 # (hashing the n-grams with scikit-learn's analyzers took another 15 s; prep.features does it in
 # about one); tests/bench/test_after_split_bench.py measures 100,000 rows. The n-gram ranges are

@@ -82,6 +82,9 @@ class ConfidentLearning:
     calibrated: np.ndarray     # (k, k) float, the joint calibrated to the given-label counts, in rows
 
 
+preload = baseline.preload  # the same imports (see there)
+
+
 def confident_learning(given: np.ndarray, probs: np.ndarray) -> ConfidentLearning:
     """Thresholds, confident joint and calibrated joint from given labels and out-of-sample probabilities.
 
