@@ -131,7 +131,7 @@ def run_sizes(argv: list[str] | None, description: str, run, line, *, prefix: st
             results[n] = run(n, folder)
             print(line(n, results[n]), flush=True)
     if args.json:
-        args.json.write_text(json.dumps({str(k): v for k, v in results.items()}, indent=1), encoding="utf-8")
+        args.json.write_text(json.dumps({str(k): v for k, v in results.items()}, indent=1, default=str), encoding="utf-8")
     return results, args
 
 
