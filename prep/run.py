@@ -121,7 +121,9 @@ def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) 
     # digests release the GIL, so a JSON Lines file parses beside them); what they add to the
     # ledger and the facts is taken in pipeline order, and the first failing source in that order
     # is the error reported.
-    workers = min(2, len(sources), os.cpu_count() or 1)
+    from prep.text import usable_cores
+
+    workers = min(2, len(sources), usable_cores())
     import prep.read  # noqa: F401  (the readers, imported here: two threads importing one module at once can fail)
     import prep.read.rawbytes  # noqa: F401
 
@@ -136,6 +138,8 @@ def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) 
         for i, source in enumerate(sources):
             t0 = time.perf_counter()
             parsed, parse_seconds = parsing[i].result() if parsing else (None, 0.0)
+            if parsing:
+                parsing[i] = None  # the reader's whole table: freed once its columns are taken
             t1 = time.perf_counter()
             frame, f = _read_source(pipeline, i, source, ledger, parsed)
             frames.append(frame)
@@ -250,7 +254,15 @@ def apply_steps(
                     pool = ThreadPoolExecutor(max_workers=1)
                 done.append(pool.submit(_apply_read_only, pipeline, spec, module, data))
                 continue
-            data, record = _apply_one(pipeline, spec, module, data, ledger, phase)
+            try:
+                data, record = _apply_one(pipeline, spec, module, data, ledger, phase)
+            except BaseException as exc:
+                # A read-only step earlier in the file that failed is the error to report (as
+                # when the steps run one after the other).
+                for entry in done:
+                    if isinstance(entry, Future) and entry.exception() is not None:
+                        raise entry.exception() from exc
+                raise
             done.append(record)
             take(wait=False)
         take(wait=True)
@@ -263,8 +275,9 @@ def apply_steps(
 def _apply_read_only(pipeline: Pipeline, spec: Any, module: Any, splits: dict[str, pl.DataFrame]):
     """A ``READ_ONLY`` after-split step on its own ledger, which must stay empty."""
     own = Ledger()
+    before = dict(splits)
     result, record = _apply_one(pipeline, spec, module, splits, own, "splits")
-    if len(own) or any(result[name] is not splits[name] for name in splits):
+    if len(own) or set(result) != set(before) or any(result[name] is not before[name] for name in before):
         raise AssertionError(f"step `{spec.name}` is marked READ_ONLY but changed the splits; this is a bug in prep.")
     return record
 

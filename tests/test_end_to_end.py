@@ -239,3 +239,37 @@ def test_after_split_imports_are_done_before_two_steps_run_at_once():
     )
     done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=300)
     assert done.returncode == 0 and done.stdout.strip() == "ok", done.stdout + done.stderr
+
+
+def test_an_earlier_read_only_steps_error_wins_over_a_later_steps_error(small_pipeline, monkeypatch):
+    # Run one after the other, the read-only step's error (first in file order) is the one reported;
+    # side by side it must be too, even when the next step fails first.
+    import dataclasses
+    import threading
+    import types
+
+    import prep.run as run_module
+    from prep.errors import DataError
+    from prep.ledger import Ledger
+    from prep.pipeline import StepSpec
+
+    def failing_read_only(splits, config, ctx):
+        threading.Event().wait(0.3)
+        raise DataError("error of the read-only step")
+
+    def failing_next(splits, config, ctx):
+        raise DataError("error of the next step")
+
+    modules = {
+        "first": types.SimpleNamespace(PHASE="splits", READ_ONLY=True, apply_splits=failing_read_only),
+        "second": types.SimpleNamespace(PHASE="splits", apply_splits=failing_next),
+    }
+    monkeypatch.setattr(run_module, "step_module", lambda name: modules[name])
+    pipeline = dataclasses.replace(
+        load_pipeline(small_pipeline), steps=[StepSpec("first", None, "steps[0].first", None), StepSpec("second", None, "steps[1].second", None)]
+    )
+    splits = {s: pl.DataFrame({"row_id": [f"{s}:0"]}) for s in SPLITS}
+    for overlap in (True, False):
+        monkeypatch.setattr(run_module, "_overlap_possible", lambda overlap=overlap: overlap)
+        with pytest.raises(DataError, match="read-only step"):
+            run_module.apply_steps(pipeline, splits, Ledger(), phase="splits")

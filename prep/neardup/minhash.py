@@ -26,7 +26,9 @@ shingles than k (bins are filled without replacement) and a larger one when it h
 bins copy the same value); the LSH banding treats both alike. Measured against the exhaustive oracle
 on 20,000 demo tickets (title + body, and titles alone; thresholds 0.8, 0.7, 0.5) its recall
 equalled the k-permutation signatures' to within one pair in 2,500 and it gave fewer candidates,
-at a tenth of the signing time (``tests/bench/test_bench_neardup.py``).
+at a tenth of the signing time (``tests/bench/test_bench_neardup.py``). On texts with few shingles
+it is slower than k functions: each empty bin probes about k/f bins for f filled ones (measured at
+k=128: 20 µs a text with one shingle, 1.0 µs with 150; k functions 0.15 µs and 9.9 µs).
 """
 
 from __future__ import annotations

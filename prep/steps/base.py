@@ -17,6 +17,9 @@ Extra output tables (e.g. schema failure cases) go to ``ctx.add_output(name, fra
 
 from __future__ import annotations
 
+import contextlib
+import threading
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -60,3 +63,17 @@ class StepContext:
     def add_output(self, name: str, frame: pl.DataFrame) -> None:
         """An extra table written next to the outputs as ``<name>.parquet``."""
         self.outputs[name] = frame
+
+
+_WARNINGS_LOCK = threading.Lock()
+
+
+@contextlib.contextmanager
+def ignoring(category: type[Warning]):
+    """``warnings.catch_warnings()`` that ignores ``category``, one block at a time in the process:
+    ``catch_warnings`` saves and restores the process-wide filter list, so two threads inside it at
+    once (after-split steps run side by side) could drop or keep each other's filters. Keep the
+    block short: other threads' blocks wait for it."""
+    with _WARNINGS_LOCK, warnings.catch_warnings():
+        warnings.simplefilter("ignore", category)
+        yield

@@ -29,7 +29,6 @@ sample by stable key, as in :func:`prep.steps.baseline.sample_per_class`); the c
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 from typing import Literal
 
@@ -38,7 +37,7 @@ import polars as pl
 
 from prep.config import ConfigValueError
 from prep.steps import baseline
-from prep.steps.base import StepContext
+from prep.steps.base import StepContext, ignoring
 
 NAME = "suspect_labels"
 PHASE = "splits"
@@ -116,10 +115,9 @@ def out_of_sample_probabilities(texts: list[str], given: np.ndarray, k: int, *, 
     n = len(texts)
     probs = np.zeros((n, k), dtype=np.float64)
     n_splits = max(2, min(folds, n))
-    with warnings.catch_warnings():
+    with ignoring(UserWarning):
         # A class with fewer rows than folds is missing from some folds' training data; its
         # probability is 0 there. scikit-learn warns about it; the card reports the folds used.
-        warnings.simplefilter("ignore", UserWarning)
         splitter = StratifiedKFold(n_splits=n_splits, shuffle=True, random_state=seed)
         pieces = list(splitter.split(np.zeros(n), given))
     counts = baseline.count_features(texts, baseline.WORD_NGRAMS, baseline.CHAR_NGRAMS)

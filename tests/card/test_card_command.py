@@ -102,3 +102,19 @@ def test_a_version_1_2_card_reads_k_permutation_signing(demo_output, tmp_path):
     text = (out / "card.md").read_text(encoding="utf-8")
     assert "one hash function per permutation (Broder 1997)" in text
     assert "one permutation hashing, optimal densification" in (demo_output / "card.md").read_text(encoding="utf-8")
+
+
+def test_a_version_1_1_card_reads_local_engine_and_k_permutation_signing(demo_output, tmp_path):
+    # 1.1 -> 1.2 (engine: local) -> 1.3 (near_duplicates.signing: permutations), in one go.
+    import json
+
+    out = copy_output(demo_output, tmp_path)
+    card = json.loads((out / "card.json").read_text(encoding="utf-8"))
+    card.pop("engine")
+    card["near_duplicates"].pop("signing")
+    card["card_version"] = "1.1"
+    (out / "card.json").write_text(json.dumps(card, indent=2), encoding="utf-8")
+    result = CliRunner().invoke(cli, ["card", str(out)])
+    assert result.exit_code == 0, result.output
+    text = (out / "card.md").read_text(encoding="utf-8")
+    assert "one hash function per permutation (Broder 1997)" in text

@@ -139,3 +139,50 @@ def test_sample_keys_are_reused_only_for_the_same_ids_and_seed():
     changed = ids.clone().scatter(500, "w:x")  # same length, one id differs
     for values, seed in [(ids, 7), (ids, 7), (ids.clone(), 7), (changed, 7), (ids, 8), (ids.head(999), 8), (ids, 7)]:
         assert _sample_keys(values, seed).to_list() == stable_keys(values, seed=seed).to_list()
+
+
+def test_fitting_the_classifier_emits_no_convergence_warning(splits):
+    # The SGD classifier runs a fixed number of epochs (tol=None); scikit-learn's convergence check
+    # needs a tol, so no ConvergenceWarning may come, and fit_quietly sets no warning filter (a
+    # filter held during a fit would race with the other after-split step's thread).
+    from sklearn.exceptions import ConvergenceWarning
+
+    from prep.steps.baseline import ALPHA, count_features, fit_quietly, make_classifier, make_weighting, texts
+
+    train = splits["train"].filter(pl.col("label").is_not_null())
+    x = make_weighting().fit_transform(count_features(texts(train, ["title", "body"]), (1, 2), (2, 4)))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        fit_quietly(make_classifier(ALPHA, "balanced", 7, train.height), x, train.get_column("label").to_list())
+    assert not [w for w in caught if issubclass(w.category, ConvergenceWarning)]
+
+
+def test_warning_blocks_of_two_threads_never_interleave():
+    # prep.steps.base.ignoring serialises catch_warnings blocks: two threads using it at once must
+    # leave the process's filter list as it was, and each block must ignore its own category.
+    import threading
+    import time
+
+    from prep.steps.base import ignoring
+
+    before = list(warnings.filters)
+    barrier = threading.Barrier(2, timeout=5)
+    leaked = []
+
+    def block(category):
+        try:
+            barrier.wait()
+        except threading.BrokenBarrierError:
+            pass
+        for _ in range(50):
+            with ignoring(category), warnings.catch_warnings(record=True) as seen:
+                time.sleep(0.0005)  # hand the GIL to the other thread inside the block (without the
+                warnings.warn("inside", category)  # lock, 10 runs of 10 broke the filters or leaked)
+                leaked.extend(seen)
+
+    threads = [threading.Thread(target=block, args=(c,)) for c in (UserWarning, RuntimeWarning)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert warnings.filters == before and not leaked
