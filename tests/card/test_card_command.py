@@ -87,34 +87,31 @@ def test_a_version_1_1_card_is_rendered_as_written_by_the_local_engine(demo_outp
     assert (out / "card.html").read_bytes() == (demo_output / "card.html").read_bytes()
 
 
-def test_a_version_1_2_card_reads_k_permutation_signing(demo_output, tmp_path):
-    # card_version 1.2 is 1.3 without `near_duplicates.signing`; every LSH search before 1.3 signed
-    # with one hash function per permutation.
+def _rendered_as_older(demo_output, tmp_path, version: str, drop_engine: bool) -> str:
+    """card.md rendered by `prep card` from the demo's card.json made into an older version."""
     import json
 
     out = copy_output(demo_output, tmp_path)
     card = json.loads((out / "card.json").read_text(encoding="utf-8"))
+    if drop_engine:
+        assert card.pop("engine") == "local"
     assert card["near_duplicates"].pop("signing") == "one_permutation"
-    card["card_version"] = "1.2"
+    card["card_version"] = version
     (out / "card.json").write_text(json.dumps(card, indent=2), encoding="utf-8")
     result = CliRunner().invoke(cli, ["card", str(out)])
     assert result.exit_code == 0, result.output
-    text = (out / "card.md").read_text(encoding="utf-8")
+    return (out / "card.md").read_text(encoding="utf-8")
+
+
+def test_a_version_1_2_card_reads_k_permutation_signing(demo_output, tmp_path):
+    # card_version 1.2 is 1.3 without `near_duplicates.signing`; every LSH search before 1.3 signed
+    # with one hash function per permutation.
+    text = _rendered_as_older(demo_output, tmp_path, "1.2", drop_engine=False)
     assert "one hash function per permutation (Broder 1997)" in text
     assert "one permutation hashing, optimal densification" in (demo_output / "card.md").read_text(encoding="utf-8")
 
 
 def test_a_version_1_1_card_reads_local_engine_and_k_permutation_signing(demo_output, tmp_path):
     # 1.1 -> 1.2 (engine: local) -> 1.3 (near_duplicates.signing: permutations), in one go.
-    import json
-
-    out = copy_output(demo_output, tmp_path)
-    card = json.loads((out / "card.json").read_text(encoding="utf-8"))
-    card.pop("engine")
-    card["near_duplicates"].pop("signing")
-    card["card_version"] = "1.1"
-    (out / "card.json").write_text(json.dumps(card, indent=2), encoding="utf-8")
-    result = CliRunner().invoke(cli, ["card", str(out)])
-    assert result.exit_code == 0, result.output
-    text = (out / "card.md").read_text(encoding="utf-8")
+    text = _rendered_as_older(demo_output, tmp_path, "1.1", drop_engine=True)
     assert "one hash function per permutation (Broder 1997)" in text
