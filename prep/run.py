@@ -123,10 +123,10 @@ def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) 
     # is the error reported.
     from prep.text import usable_cores
 
-    workers = min(2, len(sources), usable_cores())
     import prep.read  # noqa: F401  (the readers, imported here: two threads importing one module at once can fail)
     import prep.read.rawbytes  # noqa: F401
 
+    workers = min(2, len(sources), usable_cores())
     pool = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
 
     def timed_parse(source: Source) -> tuple[Any, float]:
@@ -136,16 +136,15 @@ def read_sources(pipeline: Pipeline, ledger: Ledger, report: Reporter = _quiet) 
     try:
         parsing = [pool.submit(timed_parse, s) for s in sources] if pool else None
         for i, source in enumerate(sources):
-            t0 = time.perf_counter()
-            parsed, parse_seconds = parsing[i].result() if parsing else (None, 0.0)
+            parsed, parse_seconds = parsing[i].result() if parsing else timed_parse(source)
             if parsing:
                 parsing[i] = None  # the reader's whole table: freed once its columns are taken
-            t1 = time.perf_counter()
+            t0 = time.perf_counter()
             frame, f = _read_source(pipeline, i, source, ledger, parsed)
             frames.append(frame)
             facts.append(f)
-            # The source's own time: its parse (on a thread, maybe before its turn) and the rest.
-            seconds = (parse_seconds + time.perf_counter() - t1) if parsing else time.perf_counter() - t0
+            # The source's own time: its parse (maybe on a thread before its turn) and the rest.
+            seconds = parse_seconds + time.perf_counter() - t0
             report("read", source=source.name, rows=f.rows_read, unreadable=f.rows_unreadable, seconds=seconds)
     finally:
         if pool is not None:
