@@ -23,9 +23,17 @@ How a run is spread (what runs where, and what travels to the client):
    label spellings of the whole table: phase 1 cleans the text columns per partition and returns
    the counts of the cleaned label spellings (class names and counts, small), the client decides
    the mapping exactly as the step does, phase 2 applies it per partition.
-3. **Global steps** (``exact_duplicates``, ``near_duplicates``, ``schema``, ``rare_classes``, and any
-   step not in :data:`ROW_LOCAL`) run on the client over the collected table, through the same
-   code path as the local engine. This is stage 1 of the design: the collected table holds the
+3. **Keyed global steps** (``exact_duplicates``, ``rare_classes``: ``KEYED`` in their module, see
+   :mod:`prep.steps.base`) while the table is still on the workers: each partition's keys are
+   made on its worker (provenance, label, and for exact duplicates two 64-bit digests of the
+   compared values instead of the texts, an optional parsed time); the client concatenates them
+   and runs the step's own ``decide`` over the whole table's keys (ledger, cluster table,
+   facts), and the decision (a keep mask, or a new label / ``_train_only`` column) goes back to
+   the partitions in slices (:func:`_run_keyed`).
+   **Other global steps** (``near_duplicates``, ``schema``, and any step not in :data:`ROW_LOCAL`
+   or keyed) run on the client over the collected table, through the same
+   code path as the local engine; once collected, the table stays on the client (a keyed step
+   after that runs there too, with the same result). This is stage 1 of the design: the collected table holds the
    texts, so the client needs memory for the table after the row-local steps (what the local
    engine needs anyway). Steps after a global step that are row-local go back to the workers.
    The row-local part of ``near_duplicates`` does run on the workers: before the table is first
@@ -545,6 +553,20 @@ def run_pipeline_dask(
                 timings.append(timing)
                 report("step", step=spec.name, rows_in=timing.rows_in, rows_out=timing.rows_out, seconds=timing.seconds)
                 continue
+            if table.local is None and table.parts and getattr(step_module(spec.name), "KEYED", False):
+
+                def sign_ahead(_position: int = position) -> Any:
+                    nonlocal signed_ahead, signing
+                    if not signed_ahead:
+                        signed_ahead = True
+                        signing = _start_signing(client, remote_pipeline, table, pipeline.steps[_position:])
+
+                sf, timing, outs = _run_keyed(client, remote_pipeline, spec, table, ledger, out, sign_ahead)
+                step_facts.append(sf)
+                timings.append(timing)
+                outputs.update(outs)
+                report("step", step=spec.name, rows_in=timing.rows_in, rows_out=timing.rows_out, seconds=timing.seconds)
+                continue
             from prep.run import apply_steps
 
             if table.local is None and table.parts and not signed_ahead:
@@ -612,6 +634,62 @@ def _finish_signing(client: Any, futures: list[Any]) -> float:
     results = client.gather(futures)
     remember_signed([r for r in results if r is not None])
     return time.perf_counter() - t0
+
+
+def _keys_task(pipeline: Pipeline, name: str, config: Any, part: pl.DataFrame) -> pl.DataFrame:
+    """A keyed step's keys of one partition (row-local; texts as digests)."""
+    from prep.run import step_context
+
+    _test_hook()
+    with _as_worker_error():
+        ctx = step_context(pipeline, name, Ledger())
+        return step_module(name).keys(part, config, ctx, compact=True)
+
+
+def _carry_task(part: pl.DataFrame, plan: Any) -> pl.DataFrame:
+    """A keyed step's decision carried out on one partition (rows kept, columns replaced)."""
+    return plan.carry_out(part)
+
+
+def _run_keyed(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger: Ledger, out: Path,
+               sign_ahead: Callable[[], Any]):
+    """A keyed step (``KEYED`` in its module, see :mod:`prep.steps.base`): its keys per partition
+    on the workers, its decision on the client over the keys of the whole table (provenance,
+    label, 128 bits of digest per row: never a text), the decision carried out per partition."""
+    from prep.run import StepTiming, raise_with_failure_cases, step_context
+
+    t0 = time.perf_counter()
+    parts = table.remote()
+    futures = [client.submit(_keys_task, pipeline, spec.name, spec.config, p, pure=False) for p in parts]
+    sign_ahead()  # queued after the keys: the workers sign while the client decides
+    frames = client.gather(futures)
+    del futures
+    heights = [f.height for f in frames]
+    keys = pl.concat(frames, how="vertical")
+    del frames
+    ctx = step_context(pipeline, spec.name, ledger)
+    before, ledger_rows = len(ledger), ledger.frame().height
+    try:
+        plan = step_module(spec.name).decide(keys, spec.config, ctx)
+    except DataError as exc:
+        exc.outputs = dict(ctx.outputs)
+        raise_with_failure_cases(out, exc)
+    rows_in = keys.height
+    rows_out = plan.rows_out(rows_in)
+    added = len(ledger) - before
+    if rows_in - rows_out != added:
+        raise AssertionError(f"step `{spec.name}` removed {rows_in - rows_out} rows but set aside {added}; this is a bug in prep.")
+    offsets = [sum(heights[:i]) for i in range(len(heights))]
+    table.parts = [
+        client.submit(_carry_task, p, plan.part(o, h), pure=False) for p, o, h in zip(parts, offsets, heights)
+    ]
+    table.columns = table.columns + [c.name for c in plan.columns if c.name not in table.columns]
+    new = ledger.frame().slice(ledger_rows)
+    counts = dict(sorted((r, n) for r, n in new.group_by("reason").len().iter_rows()))
+    step_facts = StepFacts(
+        name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=rows_out, set_aside=counts, facts=dict(ctx.facts)
+    )
+    return step_facts, StepTiming(spec.name, rows_in, rows_out, time.perf_counter() - t0), dict(ctx.outputs)
 
 
 def _partitionable(spec: Any, pipeline: Pipeline, columns: list[str]) -> bool:

@@ -104,9 +104,19 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     # The near-duplicate texts are signed on the workers: the client (this process) signs none.
     from prep.neardup import minhash
 
+    from prep.steps import exact_duplicates
+
     signed_here = []
     real_signatures = minhash.signatures_by
     monkeypatch.setattr(minhash, "signatures_by", lambda *a, **k: signed_here.append(1) or real_signatures(*a, **k))
+    # Keyed steps: the client sees only their keys (provenance, label, digests), never the table.
+    applied_here, keys_seen = [], {}
+    for module in (exact_duplicates,):  # rare_classes: after schema, which collects the table (see below)
+        real_decide = module.decide
+        monkeypatch.setattr(module, "apply", lambda *a, _m=module.NAME, **k: applied_here.append(_m))
+        monkeypatch.setattr(
+            module, "decide", lambda keys, *a, _m=module.NAME, _d=real_decide: keys_seen.setdefault(_m, keys.schema) and _d(keys, *a)
+        )
     local, control = cluster
     control.write_text("once")
     out = tmp_path / "dask-out"
@@ -114,6 +124,10 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
         load_pipeline(demo), out=out, engine="dask", scheduler=local.scheduler_address, partition_rows=PARTITION_ROWS
     )
     assert not signed_here, "the client signed texts the workers had signed"
+    assert not applied_here, f"the client ran {applied_here} on the whole table"
+    provenance = {"row_id", "source", "source_row"}
+    assert set(keys_seen["exact_duplicates"]) == provenance | {"_k0", "_k1", "_empty", "_label"}
+    assert keys_seen["exact_duplicates"]["_k0"] == pl.UInt64  # a digest, not the text
     assert control.with_name("control.fired").exists() and not control.exists(), "the test hook did not kill a worker"
     _assert_same_outputs(local_out, out)
     # Every input row is in exactly one split or in the ledger.
@@ -123,6 +137,57 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     assert ids.len() == ids.n_unique() == result.rows_read
     steps = {s["name"]: s for s in json.loads((out / "card.json").read_text())["steps"]}
     assert steps["language"]["facts"]["distinct_texts"] > 0  # merged from hashes, compared above
+
+
+KEYED_VARIANTS = {
+    "latest-merge": ("{keep: latest, time_column: opened, conflicts: set_aside}", "{policy: merge, merge_into: Other}"),
+    "earliest-train-only": (
+        "{keep: earliest, time_column: opened, conflicts: keep_first, case_sensitive: true}",
+        "{policy: train_only, min_rows: 30}",
+    ),
+    "first-set-aside": ("{keep: first, conflicts: majority}", "{policy: set_aside, min_rows: 40}"),
+}
+
+
+@pytest.mark.parametrize("variant", list(KEYED_VARIANTS))
+def test_keyed_steps_decide_from_keys_alone(variant, demo, cluster, tmp_path, monkeypatch):
+    # exact_duplicates and rare_classes on partitions (no global step before them collects the
+    # table): the client gets their keys only, never runs their `apply`, and the outputs equal
+    # the local engine's byte for byte, for each keep rule, conflict rule and rare-class policy.
+    from prep.steps import exact_duplicates, rare_classes
+
+    exact, rare = KEYED_VARIANTS[variant]
+    lines = []
+    for line in demo.read_text(encoding="utf-8").splitlines():
+        if line.lstrip().startswith(("- near_duplicates", "- schema")):
+            continue
+        if line.lstrip().startswith("- exact_duplicates"):
+            line = f"  - exact_duplicates: {exact}"
+        if line.lstrip().startswith("- rare_classes"):
+            line = f"  - rare_classes: {rare}"
+        lines.append(line)
+    path = demo.with_name(f"keyed-{variant}.yaml")
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    local_result = run_pipeline(load_pipeline(path), out=tmp_path / "local")
+
+    applied_here, keys_seen = [], {}
+    for module in (exact_duplicates, rare_classes):
+        real_decide = module.decide
+        monkeypatch.setattr(module, "apply", lambda *a, _m=module.NAME, **k: applied_here.append(_m))
+        monkeypatch.setattr(
+            module, "decide", lambda keys, *a, _m=module.NAME, _d=real_decide: keys_seen.setdefault(_m, keys.schema) and _d(keys, *a)
+        )
+    local, _ = cluster
+    out = tmp_path / "dask"
+    run_pipeline(load_pipeline(path), out=out, engine="dask", scheduler=local.scheduler_address, partition_rows=PARTITION_ROWS)
+    assert not applied_here and set(keys_seen) == {"exact_duplicates", "rare_classes"}
+    texts = {"title", "body"}
+    assert not texts & set(keys_seen["exact_duplicates"]) and keys_seen["exact_duplicates"]["_k0"] == pl.UInt64
+    assert not texts & set(keys_seen["rare_classes"])
+    _assert_same_outputs(local_result.output, out)
+    steps = {s["name"]: s for s in json.loads((out / "card.json").read_text())["steps"]}
+    assert steps["rare_classes"]["facts"]["classes"], "no rare class: the variant tests nothing"
+    assert steps["exact_duplicates"]["facts"]["groups"] > 0
 
 
 def test_worker_killed_every_time_ends_in_one_line_and_keeps_the_previous_output(demo, local_out, cluster, tmp_path):

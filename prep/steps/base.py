@@ -13,6 +13,16 @@ order, and never drops a row silently. Each removed row goes to the ledger via
 derived) go to ``ctx.report(key, value)``; values must be JSON-safe and must not
 contain personal data (counts and class names are fine, texts are not).
 Extra output tables (e.g. schema failure cases) go to ``ctx.add_output(name, frame)``.
+
+A step whose decision needs the whole table but only a little of each row (``exact_duplicates``,
+``rare_classes``) may also split ``apply`` in three, so that the Dask engine can run the row-local
+parts on the workers and send only the keys to the client::
+
+    KEYED = True
+    def keys(part, config, ctx, *, compact: bool) -> pl.DataFrame   # row-local: one row per row,
+        # the provenance columns and what the decision needs; ``compact``: texts as digests
+    def decide(keys, config, ctx) -> RowPlan    # the whole table's keys: ledger, facts, outputs
+    # apply(table) == RowPlan.carry_out(table) of decide(keys(table, compact=False))
 """
 
 from __future__ import annotations
@@ -63,6 +73,30 @@ class StepContext:
     def add_output(self, name: str, frame: pl.DataFrame) -> None:
         """An extra table written next to the outputs as ``<name>.parquet``."""
         self.outputs[name] = frame
+
+
+@dataclass(frozen=True)
+class RowPlan:
+    """What a keyed step does to the rows of the table, decided from the keys of all of them:
+    ``keep`` (None: every row) and whole new columns (``columns``), one value per row in table
+    order. :meth:`part` cuts the plan of one partition; :meth:`carry_out` applies it."""
+
+    keep: pl.Series | None = None
+    columns: tuple[pl.Series, ...] = ()
+
+    def part(self, offset: int, length: int) -> RowPlan:
+        return RowPlan(
+            None if self.keep is None else self.keep.slice(offset, length),
+            tuple(c.slice(offset, length) for c in self.columns),
+        )
+
+    def rows_out(self, rows_in: int) -> int:
+        return rows_in if self.keep is None else int(self.keep.sum())
+
+    def carry_out(self, table: pl.DataFrame) -> pl.DataFrame:
+        if self.columns:
+            table = table.with_columns(self.columns)
+        return table if self.keep is None else table.filter(self.keep)
 
 
 _WARNINGS_LOCK = threading.Lock()

@@ -42,7 +42,7 @@ import polars as pl
 from prep.config import ConfigValueError
 from prep.errors import PipelineError
 from prep.ledger import Reason
-from prep.steps.base import StepContext
+from prep.steps.base import RowPlan, StepContext
 
 NAME = "exact_duplicates"
 
@@ -174,29 +174,58 @@ def _check_columns(table: pl.DataFrame, needed: list[str], key: str) -> None:
         )
 
 
+KEYED = True  # see prep.steps.base: the Dask engine decides on the client from the keys alone
+
+# Seeds of the two 64-bit digests that stand for a row's compared values in compact keys (the
+# Dask engine's): two rows with different values get the same pair of digests with probability
+# about 2^-128 per pair, n^2 / 2^129 for n rows (3.7e-27 for a million). Polars' seeded hash is
+# the same in every process of one polars version, which Dask requires of its workers anyway.
+DIGEST_SEEDS = (0x5A17_E0D1, 0x0DD5_EED5)
+
+
 def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame:
     """Set aside all but one row of each group of identical rows; see the module docstring."""
+    return decide(keys(table, config, ctx, compact=False), config, ctx).carry_out(table)
+
+
+def keys(table: pl.DataFrame, config: Config, ctx: StepContext, *, compact: bool) -> pl.DataFrame:
+    """Row-local: provenance, the compared values (``_k0`` …; with ``compact`` two 64-bit digests
+    of them instead of the texts), ``_empty``, ``_label`` and, with a time column, ``_time``."""
     columns = list(config.columns) if config.columns is not None else list(ctx.text)
     _check_columns(table, columns, f"{NAME}.columns")
     _check_columns(table, [ctx.label], "label")
     if config.time_column is not None:
         _check_columns(table, [config.time_column], f"{NAME}.time_column")
-
-    label = pl.col(ctx.label).cast(pl.String)
-    keys = _key_exprs(columns, case_sensitive=config.case_sensitive)
-    work = table.select(
-        pl.int_range(pl.len(), dtype=pl.Int64).alias("_pos"),
-        *keys,
-        label.alias("_label"),
+    values = _key_exprs(columns, case_sensitive=config.case_sensitive)
+    empty = pl.all_horizontal([v == "" for v in values]).alias("_empty")
+    if compact:
+        values = [pl.struct(values).hash(seed).alias(f"_k{j}") for j, seed in enumerate(DIGEST_SEEDS)]
+    return table.select(
+        "row_id",
+        "source",
+        "source_row",
+        *values,
+        empty,
+        pl.col(ctx.label).cast(pl.String).alias("_label"),
         *([_times(table, config.time_column).alias("_time")] if config.time_column else []),
+    )
+
+
+def decide(keys: pl.DataFrame, config: Config, ctx: StepContext) -> RowPlan:
+    """The whole table's decision from its :func:`keys`: ledger rows, cluster table, facts."""
+    columns = list(config.columns) if config.columns is not None else list(ctx.text)
+    key_names = [c for c in keys.columns if c.startswith("_k")]
+    table = keys  # provenance for the ledger and the cluster table
+    work = keys.select(
+        pl.int_range(pl.len(), dtype=pl.Int64).alias("_pos"),
+        *key_names,
+        "_empty",
+        "_label",
+        *(["_time"] if "_time" in keys.columns else []),
     )
     # `_key`: the group of a row as the position of its group's first row (an integer, so
     # the windows below are cheap, and ordering by it orders groups by first appearance).
-    key_names = [f"_k{i}" for i in range(len(columns))]
-    work = work.with_columns(
-        pl.col("_pos").min().over(key_names).alias("_key"),
-        pl.all_horizontal([pl.col(k) == "" for k in key_names]).alias("_empty"),
-    ).drop(key_names)
+    work = work.with_columns(pl.col("_pos").min().over(key_names).alias("_key")).drop(key_names)
 
     # `_pref`: the global order of preference for keeping (0 = most preferred).
     if config.keep == "first":
@@ -322,4 +351,4 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
     if config.time_column is not None:
         ctx.report("unparsed_times", int(work.get_column("_time").null_count()))
 
-    return table.filter(~dup_mask & ~conflict_mask)
+    return RowPlan(keep=~dup_mask & ~conflict_mask)

@@ -30,7 +30,7 @@ from prep.config import ConfigValueError
 from prep.errors import PipelineError
 from prep.ledger import Reason
 from prep.split import min_rows_for_all_splits
-from prep.steps.base import StepContext
+from prep.steps.base import RowPlan, StepContext
 
 NAME = "rare_classes"
 
@@ -54,17 +54,31 @@ class Config:
             raise ConfigValueError("merge_into", "is only used with `policy: merge`; remove it or set the policy")
 
 
+KEYED = True  # see prep.steps.base: the Dask engine decides on the client from the keys alone
+
+
 def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame:
     """Set aside, merge or mark the rows of rare classes; see the module docstring."""
+    return decide(keys(table, config, ctx, compact=False), config, ctx).carry_out(table)
+
+
+def keys(table: pl.DataFrame, config: Config, ctx: StepContext, *, compact: bool) -> pl.DataFrame:
+    """Row-local: provenance, the label as text and, when the table has one, ``_train_only``."""
     if ctx.label not in table.columns:
         raise PipelineError(f"the label column `{ctx.label}` is not in the table.", key="label")
+    marked = [TRAIN_ONLY_COLUMN] if TRAIN_ONLY_COLUMN in table.columns else []
+    return table.select("row_id", "source", "source_row", pl.col(ctx.label).cast(pl.String).alias("_label"), *marked)
+
+
+def decide(keys: pl.DataFrame, config: Config, ctx: StepContext) -> RowPlan:
+    """The whole table's decision from its :func:`keys`: ledger rows and facts."""
     min_rows = config.min_rows
     if min_rows is None:
         min_rows = min_rows_for_all_splits(list(ctx.split_fractions.values()))
 
-    label = pl.col(ctx.label)
+    label = pl.col("_label")
     counts = (
-        table.select(label.cast(pl.String).alias("class"))
+        keys.select(label.alias("class"))
         .filter(pl.col("class").is_not_null())
         .group_by("class")
         .len()
@@ -73,27 +87,28 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
     )
     rare = counts.filter(pl.col("rows") < min_rows)
     rare_names = rare.get_column("class")
-    class_rows = pl.len().over(ctx.label)
-    is_rare = label.cast(pl.String).is_in(rare_names.implode()).fill_null(False)
+    class_rows = pl.len().over("_label")
+    is_rare = label.is_in(rare_names.implode()).fill_null(False)
 
     classes: list[dict] = []
-    result = table
+    plan = RowPlan()
     if config.policy == "set_aside":
-        mask = table.select(is_rare).to_series()
-        aside = table.filter(mask)
+        mask = keys.select(is_rare).to_series()
+        aside = keys.filter(mask)
         detail = aside.select(
             pl.format("class has {} rows, fewer than {}", class_rows, pl.lit(min_rows))
         ).to_series()
         ctx.set_aside(aside, Reason.RARE_CLASS, detail=detail)
-        result = table.filter(~mask)
+        plan = RowPlan(keep=~mask)
         classes = [{"class": c, "rows": n, "action": "set_aside"} for c, n in rare.iter_rows()]
     elif config.policy == "merge":
         target = config.merge_into
         moved = rare.filter(pl.col("class") != target)
-        result = table.with_columns(
-            pl.when(is_rare).then(pl.lit(target, dtype=pl.String)).otherwise(label.cast(pl.String)).alias(ctx.label)
-        )
-        rows_after = int(result.select((label == target).sum()).item())
+        merged = keys.select(
+            pl.when(is_rare).then(pl.lit(target, dtype=pl.String)).otherwise(label).alias(ctx.label)
+        ).to_series()
+        plan = RowPlan(columns=(merged,))
+        rows_after = int((merged == target).sum())
         classes = [
             {"class": c, "rows": n, "action": "merge_target" if c == target else "merged"} for c, n in rare.iter_rows()
         ]
@@ -109,12 +124,12 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
         )
     else:  # train_only
         mark = is_rare
-        if TRAIN_ONLY_COLUMN in table.columns:
+        if TRAIN_ONLY_COLUMN in keys.columns:
             mark = pl.col(TRAIN_ONLY_COLUMN).fill_null(False) | is_rare
-        result = table.with_columns(mark.cast(pl.Boolean).alias(TRAIN_ONLY_COLUMN))
+        plan = RowPlan(columns=(keys.select(mark.cast(pl.Boolean).alias(TRAIN_ONLY_COLUMN)).to_series(),))
         classes = [{"class": c, "rows": n, "action": "train_only"} for c, n in rare.iter_rows()]
 
     ctx.report("min_rows", min_rows)
     ctx.report("policy", config.policy)
     ctx.report("classes", [{"class": c["class"], "rows": int(c["rows"]), "action": c["action"]} for c in classes])
-    return result
+    return plan
