@@ -23,24 +23,23 @@ How a run is spread (what runs where, and what travels to the client):
    label spellings of the whole table: phase 1 cleans the text columns per partition and returns
    the counts of the cleaned label spellings (class names and counts, small), the client decides
    the mapping exactly as the step does, phase 2 applies it per partition.
-3. **Keyed global steps** (``exact_duplicates``, ``rare_classes``: ``KEYED`` in their module, see
-   :mod:`prep.steps.base`) while the table is still on the workers: each partition's keys are
-   made on its worker (provenance, label, and for exact duplicates two 64-bit digests of the
-   compared values instead of the texts, an optional parsed time); the client concatenates them
-   and runs the step's own ``decide`` over the whole table's keys (ledger, cluster table,
-   facts), and the decision (a keep mask, or a new label / ``_train_only`` column) goes back to
-   the partitions in slices (:func:`_run_keyed`).
-   **Other global steps** (``near_duplicates``, ``schema``, and any step not in :data:`ROW_LOCAL`
-   or keyed) run on the client over the collected table, through the same
-   code path as the local engine; once collected, the table stays on the client (a keyed step
-   after that runs there too, with the same result). This is stage 1 of the design: the collected table holds the
-   texts, so the client needs memory for the table after the row-local steps (what the local
-   engine needs anyway). Steps after a global step that are row-local go back to the workers.
-   The row-local part of ``near_duplicates`` does run on the workers: before the table is first
-   collected, when that step lies ahead, signing each partition's compared texts starts there
-   (:func:`_start_signing`) while the client runs the global steps before it; just before the
-   step, the client receives the distinct compared texts with their band keys, set sizes and
-   sketches (:func:`_finish_signing`), and the step looks them up instead of signing (the same keys).
+3. **Keyed global steps** (``exact_duplicates``, ``near_duplicates``, ``rare_classes``: ``KEYED``
+   in their module, see :mod:`prep.steps.base`) while the table is still on the workers: each
+   partition's keys are made on its worker (provenance, label, 128-bit digests of the compared
+   values instead of the texts, a text length or parsed time when ``keep`` needs one); the
+   client concatenates them and runs the step's own ``decide`` over the whole table's keys
+   (ledger, cluster table, facts), and the decision (a keep mask and/or whole new columns: the
+   merged label, ``_train_only``, ``_cluster``) goes back to the partitions in slices
+   (:func:`_run_keyed`). ``near_duplicates`` looks its band keys and sketches up in what the
+   workers signed ahead (signing starts at the first keyed or collecting step, on the
+   partitions as they are then: :func:`_start_signing`, :func:`_finish_signing`) and fetches
+   from the workers the compared texts of the rows whose candidate pairs it verifies exactly
+   (:func:`_fetcher`), nothing else. Workers must run the client's polars (checked:
+   :func:`_check_versions`).
+   **Other global steps** (``schema``, and any step neither in :data:`ROW_LOCAL` nor keyed) run
+   on the client over the collected table, through the same code path as the local engine; once
+   collected, the table stays on the client, and every later step runs there (keyed or
+   row-local: the same result).
 4. **Split, after-split steps, audit, card and writing** run on the client in
    :func:`prep.run.finish_run`, the function the local engine calls, so the output folder is
    written only by :class:`prep.write.OutputFolder` on the client: a failed or killed run never
@@ -421,6 +420,7 @@ def _client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
                 hint="Start it with `dask scheduler` and check the address, or leave out --scheduler to use a local cluster.",
             ) from exc
         with client:
+            _check_versions(client, scheduler)
             yield client
         return
     from prep.lang import default_workers
@@ -431,6 +431,30 @@ def _client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
         n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None, silence_logs=logging.CRITICAL
     ) as cluster, Client(cluster) as client:
         yield client
+
+
+def _versions() -> dict[str, str]:
+    import polars
+
+    import prep
+
+    return {"polars": polars.__version__, "prep": getattr(prep, "__version__", "?")}
+
+
+def _check_versions(client: Any, scheduler: str) -> None:
+    """Every worker must run the client's polars and prep: row digests (exact and near duplicates,
+    distinct texts) are polars' seeded hashes, the same only within one polars version, and a
+    worker with another version would silently group nothing with the client's rows. Dask's own
+    version check does not cover polars."""
+    mine = _versions()
+    for worker, theirs in sorted(client.run(_versions).items()):
+        for package, version in mine.items():
+            if theirs.get(package) != version:
+                raise PrepError(
+                    f"The Dask worker {worker} of the scheduler at `{scheduler}` runs {package} {theirs.get(package)}, "
+                    f"this machine {version}; prep needs the same {package} version on every worker.",
+                    hint=f'Install the same versions everywhere, e.g. pip install "{package}=={version}".',
+                )
 
 
 @contextmanager
@@ -555,11 +579,15 @@ def run_pipeline_dask(
                 continue
             if table.local is None and table.parts and getattr(step_module(spec.name), "KEYED", False):
 
-                def sign_ahead(_position: int = position) -> Any:
+                def sign_ahead(_position: int = position, _name: str = spec.name) -> None:
+                    """Start signing ahead (once); for near_duplicates itself, wait for it and remember it."""
                     nonlocal signed_ahead, signing
                     if not signed_ahead:
                         signed_ahead = True
                         signing = _start_signing(client, remote_pipeline, table, pipeline.steps[_position:])
+                    if _name == "near_duplicates" and signing is not None:
+                        _finish_signing(client, signing)
+                        signing, table.in_use = None, False
 
                 sf, timing, outs = _run_keyed(client, remote_pipeline, spec, table, ledger, out, sign_ahead)
                 step_facts.append(sf)
@@ -646,6 +674,39 @@ def _keys_task(pipeline: Pipeline, name: str, config: Any, part: pl.DataFrame) -
         return step_module(name).keys(part, config, ctx, compact=True)
 
 
+def _texts_task(pipeline: Pipeline, name: str, config: Any, part: pl.DataFrame, rows: Any) -> pl.Series:
+    """The compared texts of ``rows`` (positions in this partition) of a step that fetches texts."""
+    from prep.run import step_context
+
+    _test_hook()
+    with _as_worker_error():
+        ctx = step_context(pipeline, name, Ledger())
+        return step_module(name).fetch_texts(part, config, ctx, rows)
+
+
+def _fetcher(client: Any, pipeline: Pipeline, spec: Any, parts: list[Any], heights: list[int]) -> Callable:
+    """``fetch(rows)``: the compared texts of the table's ``rows`` (positions, any order), each
+    partition asked only for its own rows (one task per partition that holds any)."""
+    import numpy as np
+
+    ends = np.cumsum(np.asarray(heights, dtype=np.int64))
+    starts = ends - np.asarray(heights, dtype=np.int64)
+
+    def fetch(rows: Any) -> pl.Series:
+        rows = np.asarray(rows, dtype=np.int64)
+        wanted = np.unique(rows)
+        which = np.searchsorted(ends, wanted, side="right")
+        futures = []
+        for k in np.unique(which).tolist():
+            local = wanted[which == k] - starts[k]
+            futures.append(client.submit(_texts_task, pipeline, spec.name, spec.config, parts[k], local, pure=False))
+        got = client.gather(futures)
+        texts = pl.concat(got) if got else pl.Series([], dtype=pl.String)
+        return texts.gather(np.searchsorted(wanted, rows)) if rows.size else texts
+
+    return fetch
+
+
 def _carry_task(part: pl.DataFrame, plan: Any) -> pl.DataFrame:
     """A keyed step's decision carried out on one partition (rows kept, columns replaced)."""
     return plan.carry_out(part)
@@ -662,6 +723,7 @@ def _run_keyed(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger
     parts = table.remote()
     futures = [client.submit(_keys_task, pipeline, spec.name, spec.config, p, pure=False) for p in parts]
     sign_ahead()  # queued after the keys: the workers sign while the client decides
+    module = step_module(spec.name)
     frames = client.gather(futures)
     del futures
     heights = [f.height for f in frames]
@@ -670,7 +732,10 @@ def _run_keyed(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger
     ctx = step_context(pipeline, spec.name, ledger)
     before, ledger_rows = len(ledger), ledger.frame().height
     try:
-        plan = step_module(spec.name).decide(keys, spec.config, ctx)
+        if getattr(module, "FETCHES_TEXTS", False):
+            plan = module.decide(keys, spec.config, ctx, fetch=_fetcher(client, pipeline, spec, parts, heights))
+        else:
+            plan = module.decide(keys, spec.config, ctx)
     except DataError as exc:
         exc.outputs = dict(ctx.outputs)
         raise_with_failure_cases(out, exc)

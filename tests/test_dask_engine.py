@@ -84,6 +84,26 @@ def cluster(tmp_path_factory):
             os.environ["PREP_DASK_TEST_KILL"] = saved
 
 
+def _watch_keyed(monkeypatch, modules, applied_here: list, keys_seen: dict) -> None:
+    """Record a keyed step's `apply` and `keys` run in this process (the client; neither should be)
+    and the schema of the keys its `decide` gets."""
+    for module in modules:
+        real_decide = module.decide
+        for name in ("apply", "keys"):
+            monkeypatch.setattr(module, name, lambda *a, _m=f"{module.NAME}.{name}", **k: applied_here.append(_m))
+        monkeypatch.setattr(
+            module, "decide",
+            lambda keys, *a, _m=module.NAME, _d=real_decide, **k: keys_seen.setdefault(_m, keys.schema) and _d(keys, *a, **k),
+        )
+
+
+def _assert_no_text(keys_seen: dict) -> None:
+    """Keys hold provenance, the label, digests, flags, lengths and times: no other string column."""
+    for step, schema in keys_seen.items():
+        strings = [c for c, t in schema.items() if t == pl.String and c not in ("row_id", "source", "_label")]
+        assert not strings, f"{step}: keys hold the string columns {strings}"
+
+
 def _assert_same_outputs(local: Path, other: Path) -> None:
     for name in [*(f"{s}.parquet" for s in SPLITS), "set_aside.parquet", "duplicates.parquet"]:
         a, b = pl.read_parquet(local / name), pl.read_parquet(other / name)
@@ -104,19 +124,24 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     # The near-duplicate texts are signed on the workers: the client (this process) signs none.
     from prep.neardup import minhash
 
-    from prep.steps import exact_duplicates
+    from prep import dask_engine
+    from prep.steps import exact_duplicates, near_duplicates
 
     signed_here = []
     real_signatures = minhash.signatures_by
     monkeypatch.setattr(minhash, "signatures_by", lambda *a, **k: signed_here.append(1) or real_signatures(*a, **k))
-    # Keyed steps: the client sees only their keys (provenance, label, digests), never the table.
-    applied_here, keys_seen = [], {}
-    for module in (exact_duplicates,):  # rare_classes: after schema, which collects the table (see below)
-        real_decide = module.decide
-        monkeypatch.setattr(module, "apply", lambda *a, _m=module.NAME, **k: applied_here.append(_m))
-        monkeypatch.setattr(
-            module, "decide", lambda keys, *a, _m=module.NAME, _d=real_decide: keys_seen.setdefault(_m, keys.schema) and _d(keys, *a)
-        )
+    # Keyed steps: the client sees only their keys (provenance, label, digests), never the table:
+    # it runs neither their `apply` nor their `keys` (those run on the workers). rare_classes comes
+    # after schema, which collects the table (see test_keyed_steps_decide_from_keys_alone).
+    applied_here, keys_seen, fetched = [], {}, []
+    _watch_keyed(monkeypatch, (exact_duplicates, near_duplicates), applied_here, keys_seen)
+    real_fetcher = dask_engine._fetcher
+
+    def counting_fetcher(*args):
+        fetch = real_fetcher(*args)
+        return lambda rows: fetched.append(len(rows)) or fetch(rows)
+
+    monkeypatch.setattr(dask_engine, "_fetcher", counting_fetcher)
     local, control = cluster
     control.write_text("once")
     out = tmp_path / "dask-out"
@@ -125,9 +150,12 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     )
     assert not signed_here, "the client signed texts the workers had signed"
     assert not applied_here, f"the client ran {applied_here} on the whole table"
-    provenance = {"row_id", "source", "source_row"}
-    assert set(keys_seen["exact_duplicates"]) == provenance | {"_k0", "_k1", "_empty", "_label"}
-    assert keys_seen["exact_duplicates"]["_k0"] == pl.UInt64  # a digest, not the text
+    assert set(keys_seen) == {"exact_duplicates", "near_duplicates"}
+    _assert_no_text(keys_seen)
+    # Texts travel only for the rows whose pairs the search verifies exactly (the keys were signed
+    # ahead on the workers, so none is fetched for signing).
+    rows_in = {s["name"]: s["rows_in"] for s in json.loads((out / "card.json").read_text())["steps"]}
+    assert 0 < sum(fetched) < rows_in["near_duplicates"] / 2
     assert control.with_name("control.fired").exists() and not control.exists(), "the test hook did not kill a worker"
     _assert_same_outputs(local_out, out)
     # Every input row is in exactly one split or in the ledger.
@@ -171,19 +199,13 @@ def test_keyed_steps_decide_from_keys_alone(variant, demo, cluster, tmp_path, mo
     local_result = run_pipeline(load_pipeline(path), out=tmp_path / "local")
 
     applied_here, keys_seen = [], {}
-    for module in (exact_duplicates, rare_classes):
-        real_decide = module.decide
-        monkeypatch.setattr(module, "apply", lambda *a, _m=module.NAME, **k: applied_here.append(_m))
-        monkeypatch.setattr(
-            module, "decide", lambda keys, *a, _m=module.NAME, _d=real_decide: keys_seen.setdefault(_m, keys.schema) and _d(keys, *a)
-        )
+    _watch_keyed(monkeypatch, (exact_duplicates, rare_classes), applied_here, keys_seen)
     local, _ = cluster
     out = tmp_path / "dask"
     run_pipeline(load_pipeline(path), out=out, engine="dask", scheduler=local.scheduler_address, partition_rows=PARTITION_ROWS)
     assert not applied_here and set(keys_seen) == {"exact_duplicates", "rare_classes"}
-    texts = {"title", "body"}
-    assert not texts & set(keys_seen["exact_duplicates"]) and keys_seen["exact_duplicates"]["_k0"] == pl.UInt64
-    assert not texts & set(keys_seen["rare_classes"])
+    _assert_no_text(keys_seen)
+    assert keys_seen["exact_duplicates"]["_k0"] == pl.UInt64  # a digest of the compared values
     _assert_same_outputs(local_result.output, out)
     steps = {s["name"]: s for s in json.loads((out / "card.json").read_text())["steps"]}
     assert steps["rare_classes"]["facts"]["classes"], "no rare class: the variant tests nothing"
@@ -312,3 +334,24 @@ def test_url_input_a_worker_cannot_read_is_one_line(small_pipeline, tmp_path):
         dask_engine._read_task(pipeline, 0)
     assert info.value.exit_code == 2 and "\n" not in str(info.value)
     assert f"input `{url}` of source `desk` cannot be read on a Dask worker: it does not exist." in str(info.value)
+
+
+def test_workers_with_another_polars_are_refused_in_one_line():
+    # Row digests are polars' seeded hashes, equal only within one polars version: a worker with
+    # another version would silently group nothing with the others' rows, so the run must refuse.
+    import polars
+
+    from prep import dask_engine
+
+    class FakeClient:
+        def __init__(self, version):
+            self.version = version
+
+        def run(self, function):
+            return {"tcp://10.0.0.5:4000": {**function(), "polars": self.version}}
+
+    dask_engine._check_versions(FakeClient(polars.__version__), "tcp://10.0.0.4:8786")  # same: accepted
+    with pytest.raises(PrepError) as info:
+        dask_engine._check_versions(FakeClient("0.0.1"), "tcp://10.0.0.4:8786")
+    message = str(info.value)
+    assert "\n" not in message and "polars 0.0.1" in message and f"this machine {polars.__version__}" in message

@@ -67,25 +67,72 @@ class Found:
     facts: dict[str, Any] = field(default_factory=dict)
 
 
+# Seeds of the two 64-bit digests that identify a normalised text (identical texts, remembered
+# keys): two different texts share both with probability about 2^-128 (n^2 / 2^129 for n texts).
+# Polars' seeded hash is the same in every process of one polars version.
+DIGEST_SEEDS = (0x7E57_D16E, 0x51DE_0F7E)
+
+
+def text_digests(texts: pl.Series) -> pl.DataFrame:
+    """Two 64-bit digests (``_d0``, ``_d1``) of each normalised text (null as "")."""
+    texts = texts.fill_null("")
+    return pl.DataFrame({f"_d{k}": texts.hash(seed) for k, seed in enumerate(DIGEST_SEEDS)})
+
+
+class Texts:
+    """Normalised texts as the search needs them: their digests and which are non-empty for all
+    of them, the texts themselves only for the rows it asks for (:meth:`gather`). Built from a
+    series (:meth:`of`: the local engine, tests) or from digests and a function that fetches the
+    texts of given rows from where they are (the Dask engine's workers), so that the search
+    moves texts only for rows in pairs that it must verify exactly."""
+
+    def __init__(self, digests: pl.DataFrame, nonempty: np.ndarray, fetch: Callable[[np.ndarray], pl.Series]) -> None:
+        self.digests = digests
+        self.nonempty = nonempty
+        self._fetch = fetch
+
+    @classmethod
+    def of(cls, texts: pl.Series) -> Texts:
+        texts = texts.fill_null("")
+        return cls(text_digests(texts), (texts.str.len_bytes() > 0).to_numpy(), texts.gather)
+
+    def len(self) -> int:
+        return self.digests.height
+
+    def gather(self, rows: np.ndarray) -> pl.Series:
+        """The texts of ``rows`` (positions), in that order."""
+        return self._fetch(np.asarray(rows, dtype=np.int64))
+
+    def take(self, rows: np.ndarray) -> Texts:
+        """The texts of ``rows`` as a :class:`Texts` of their own (nothing fetched)."""
+        rows = np.asarray(rows, dtype=np.int64)
+        return Texts(self.digests[rows], self.nonempty[rows], lambda at: self._fetch(rows[at]))
+
+
+def _as_texts(texts: pl.Series | Texts) -> Texts:
+    return texts if isinstance(texts, Texts) else Texts.of(texts)
+
+
 def pair_similarity(
-    texts: pl.Series, i: np.ndarray, j: np.ndarray, settings: Settings, *, at_least: float = 0.0
+    texts: pl.Series | Texts, i: np.ndarray, j: np.ndarray, settings: Settings, *, at_least: float = 0.0
 ) -> np.ndarray:
     """The configured exact similarity of each pair of normalised texts. With ``at_least`` > 0
     (Jaccard only), pairs below it may get -1.0 instead of their value (see :func:`verify.jaccard_pairs`)."""
     if i.size == 0:
         return np.zeros(0, dtype=np.float64)
-    if settings.similarity == "edit":
-        return verify.edit_similarity_pairs(texts, i, j)
     used = np.zeros(texts.len(), dtype=bool)
     used[i] = True
     used[j] = True
     rows = np.flatnonzero(used)
     local = np.cumsum(used) - 1  # row index -> position among the used rows
-    sub = shingle(texts.gather(rows), settings.shingles, settings.shingle_n)
+    subset = texts.gather(rows).fill_null("")  # only the texts of rows in a pair
+    if settings.similarity == "edit":
+        return verify.edit_similarity_pairs(subset, local[i], local[j])
+    sub = shingle(subset, settings.shingles, settings.shingle_n)
     return verify.jaccard_pairs(sub, local[i], local[j], at_least)
 
 
-def similarity_of(found: Found, texts: pl.Series, i: np.ndarray, j: np.ndarray, settings: Settings) -> np.ndarray:
+def similarity_of(found: Found, texts: pl.Series | Texts, i: np.ndarray, j: np.ndarray, settings: Settings) -> np.ndarray:
     """The configured exact similarity of each pair (i[p], j[p]) of rows of ``found``'s search of
     ``texts``: a pair that the search verified (or linked as identical texts) takes the value it
     found, the others are computed (:func:`pair_similarity`). The same values as computing all: the
@@ -108,7 +155,8 @@ def similarity_of(found: Found, texts: pl.Series, i: np.ndarray, j: np.ndarray, 
 
 
 class _KeyMemo:
-    """The band keys, set sketches and verified pairs of the last LSH search, by text: the runner's
+    """The band keys, set sketches and verified pairs of the last LSH search, by text digest (see
+    :func:`text_digests`): the runner's
     leakage audit searches the texts that the step just searched (minus the rows it set aside), and
     all three are a pure function of the texts and the settings, so the audit looks them up instead
     of signing and verifying every text again. A lookup gives exactly what the search would give:
@@ -119,13 +167,13 @@ class _KeyMemo:
 
     def __init__(self) -> None:
         self.params: tuple | None = None
-        self.texts: pl.Series | None = None
+        self.digests: pl.DataFrame | None = None
         self.signed: _Signed | None = None
         self.pair_params: tuple | None = None
         self.pairs: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
-    def store(self, params: tuple, texts: pl.Series, signed: _Signed) -> None:
-        self.params, self.texts, self.signed = params, texts, signed
+    def store(self, params: tuple, digests: pl.DataFrame, signed: _Signed) -> None:
+        self.params, self.digests, self.signed = params, digests, signed
         self.pair_params = self.pairs = None
 
     def store_pairs(self, pair_params: tuple, i: np.ndarray, j: np.ndarray, similarity: np.ndarray) -> None:
@@ -135,23 +183,24 @@ class _KeyMemo:
     def clear(self) -> None:
         self.__init__()
 
-    def lookup(self, params: tuple, texts: pl.Series) -> np.ndarray:
-        """Position in the stored texts of each of ``texts`` (-1 when not stored)."""
-        if self.params != params or self.texts is None:
-            return np.full(texts.len(), -1, dtype=np.int64)
-        stored = pl.DataFrame({"t": self.texts}).with_row_index("k").unique("t", keep="first", maintain_order=True)
-        hit = pl.DataFrame({"t": texts}).join(stored, on="t", how="left", maintain_order="left")
+    def lookup(self, params: tuple, digests: pl.DataFrame) -> np.ndarray:
+        """Position in the stored texts of each text of ``digests`` (-1 when not stored)."""
+        if self.params != params or self.digests is None:
+            return np.full(digests.height, -1, dtype=np.int64)
+        on = list(digests.columns)
+        stored = self.digests.with_row_index("k").unique(on, keep="first", maintain_order=True)
+        hit = digests.join(stored, on=on, how="left", maintain_order="left")
         return hit.get_column("k").fill_null(-1).cast(pl.Int64).to_numpy()
 
-    def pairs_among(self, pair_params: tuple, texts: pl.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-        """(i, j, similarity), i < j positions in ``texts`` (distinct texts), sorted: the stored
-        verified pairs between two of ``texts``; None unless every text is stored with these settings."""
+    def pairs_among(self, pair_params: tuple, digests: pl.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """(i, j, similarity), i < j positions in ``digests`` (distinct texts), sorted: the stored
+        verified pairs between two of these texts; None unless every text is stored with these settings."""
         if self.pairs is None or self.pair_params != pair_params:
             return None
-        at = self.lookup(pair_params[0], texts)
+        at = self.lookup(pair_params[0], digests)
         if at.size and at.min() < 0:
             return None
-        where = np.full(self.texts.len(), -1, dtype=np.int64)
+        where = np.full(self.digests.height, -1, dtype=np.int64)
         where[at] = np.arange(at.size, dtype=np.int64)
         si, sj, ss = self.pairs
         a, b = where[si], where[sj]
@@ -198,7 +247,7 @@ def forget_keys() -> None:
 
 
 def _band_keys(
-    texts: pl.Series, settings: Settings, bands: int, rows: int, *, reuse: bool = False, remember: bool = False
+    texts: Texts, settings: Settings, bands: int, rows: int, *, reuse: bool = False, remember: bool = False
 ) -> _Signed:
     """Band keys, shingle flags, set sizes and sketches of ``texts``, computed chunk by chunk (the
     shingles of a chunk are dropped once it is signed). ``reuse``: take what the last remembered
@@ -208,12 +257,12 @@ def _band_keys(
     m = texts.len()
     params = _key_params(settings, bands, rows)
     signed = _Signed.empty(m, bands)
-    known = _MEMO.lookup(params, texts) if reuse else np.full(m, -1, dtype=np.int64)
+    known = _MEMO.lookup(params, texts.digests) if reuse else np.full(m, -1, dtype=np.int64)
     have = known >= 0
     if have.any():
         signed.put(have, _MEMO.signed, known[have])
     todo = np.flatnonzero(~have)
-    values = texts.gather(todo) if todo.size < m else texts
+    values = texts.gather(todo) if todo.size else pl.Series([], dtype=pl.String)
     for lo in range(0, todo.size, SIGN_CHUNK_TEXTS):  # one iteration per chunk of texts
         # Python strings for one chunk at a time (all of a million texts at once: ~0.6-0.9 GiB of
         # objects, slower per text than chunks that stay in cache).
@@ -223,7 +272,7 @@ def _band_keys(
         sizes, sketch, excess = kernels.set_sketches(chunk.hashes, chunk.offsets)
         signed.put(at, _Signed(lsh.band_keys(sigs, bands, rows), chunk.counts > 0, sizes, sketch, excess))
     if remember:
-        _MEMO.store(params, texts, signed)
+        _MEMO.store(params, texts.digests, signed)
     return signed
 
 
@@ -244,31 +293,31 @@ def _pair_params(settings: Settings, bands: int, rows: int) -> tuple:
     return (_key_params(settings, bands, rows), settings.threshold, settings.similarity)
 
 
-def sign(texts: pl.Series, settings: Settings) -> tuple[tuple, pl.Series, _Signed]:
-    """(key parameters, distinct non-empty texts, their band keys and sketches) of normalised
-    ``texts``: what an LSH search with ``settings`` computes for them. The Dask engine runs this on
-    each partition on the workers and hands the results to :func:`remember_signed` on the client,
-    so the search there looks the keys up instead of signing (the shingling and MinHash work is
-    row-local; only band keys, sizes and sketches travel)."""
+def sign(texts: pl.Series, settings: Settings) -> tuple[tuple, pl.DataFrame, _Signed]:
+    """(key parameters, digests of the distinct non-empty texts, their band keys and sketches) of
+    normalised ``texts``: what an LSH search with ``settings`` computes for them. The Dask engine
+    runs this on each partition on the workers and hands the results to :func:`remember_signed`
+    on the client, so the search there looks the keys up instead of signing (the shingling and
+    MinHash work is row-local; only digests, band keys, sizes and sketches travel, never a text)."""
     bands, rows, _ = _bands(settings)
     distinct = texts.fill_null("").unique(maintain_order=True)
-    distinct = distinct.filter(distinct.str.len_bytes() > 0)
-    return _key_params(settings, bands, rows), distinct, _band_keys(distinct, settings, bands, rows)
+    distinct = Texts.of(distinct.filter(distinct.str.len_bytes() > 0))
+    return _key_params(settings, bands, rows), distinct.digests, _band_keys(distinct, settings, bands, rows)
 
 
-def remember_signed(parts: list[tuple[tuple, pl.Series, _Signed]]) -> None:
+def remember_signed(parts: list[tuple[tuple, pl.DataFrame, _Signed]]) -> None:
     """Remember the results of :func:`sign` (all with the same settings) for the next search with
     ``reuse_keys``; texts signed in several parts are looked up in the first."""
     if not parts or any(p[0] != parts[0][0] for p in parts):
         return
-    texts = pl.concat([p[1] for p in parts]) if len(parts) > 1 else parts[0][1]
+    digests = pl.concat([p[1] for p in parts]) if len(parts) > 1 else parts[0][1]
     bands = parts[0][2].keys.shape[1]
-    signed = _Signed.empty(texts.len(), bands)
+    signed = _Signed.empty(digests.height, bands)
     at = 0
-    for _, part_texts, part_signed in parts:
-        signed.put(slice(at, at + part_texts.len()), part_signed)
-        at += part_texts.len()
-    _MEMO.store(parts[0][0], texts, signed)
+    for _, part_digests, part_signed in parts:
+        signed.put(slice(at, at + part_digests.height), part_signed)
+        at += part_digests.height
+    _MEMO.store(parts[0][0], digests, signed)
 
 
 def _threads() -> int:
@@ -362,7 +411,7 @@ def _lsh_candidates(signed: _Signed, threshold: float) -> tuple[np.ndarray, np.n
 
 
 def find(
-    texts: pl.Series,
+    texts: pl.Series | Texts,
     settings: Settings,
     *,
     pair_filter: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
@@ -377,16 +426,20 @@ def find(
     and verified pairs for a later search: ``reuse_keys`` looks up the keys of texts remembered
     (by this or by :func:`remember_signed`), ``reuse_pairs`` takes the verified pairs when every
     text was in the remembered search (see :class:`_KeyMemo`); results are the same either way."""
+    texts = _as_texts(texts)
     n_rows = texts.len()
-    texts = texts.fill_null("")
-    # 1. Identical texts: representative = first row of each distinct non-empty text.
-    frame = pl.DataFrame({"t": texts}).with_row_index("pos")
-    rep_of = frame.select(pl.col("pos").min().over("t").alias("rep")).get_column("rep").to_numpy().astype(np.int64)
+    # 1. Identical texts (same digests): representative = first row of each distinct non-empty text.
+    on = list(texts.digests.columns)
+    rep_of = (
+        texts.digests.with_row_index("pos")
+        .select(pl.col("pos").min().over(on).alias("rep"))
+        .get_column("rep").to_numpy().astype(np.int64)
+    )
     pos = np.arange(n_rows, dtype=np.int64)
-    nonempty = (texts.str.len_bytes() > 0).to_numpy()
+    nonempty = texts.nonempty
     copy = (rep_of != pos) & nonempty
     reps = np.flatnonzero((rep_of == pos) & nonempty)
-    rep_texts = texts.gather(reps)
+    rep_texts = texts.take(reps)
 
     facts: dict[str, Any] = {
         "method": settings.method,
@@ -400,7 +453,7 @@ def find(
             ci, cj = _all_index_pairs(reps.size)
             sim = pair_similarity(rep_texts, ci, cj, settings)
         else:
-            sh = shingle(rep_texts, settings.shingles, settings.shingle_n)
+            sh = shingle(rep_texts.gather(np.arange(reps.size)), settings.shingles, settings.shingle_n)
             ci, cj, sim = exhaustive.all_pairs(sh, settings.threshold)
         facts["candidates"] = int(reps.size * (reps.size - 1) // 2)
     else:
@@ -409,7 +462,7 @@ def find(
             permutations=settings.permutations, signing=settings.signing, bands=bands, rows=rows, expected_recall_at_threshold=round(p_at, 6)
         )
         pair_params = _pair_params(settings, bands, rows)
-        known = _MEMO.pairs_among(pair_params, rep_texts) if reuse_pairs else None
+        known = _MEMO.pairs_among(pair_params, rep_texts.digests) if reuse_pairs else None
         if known is not None:  # every text was in the remembered search: its verified pairs
             ci, cj, sim = known
             if pair_filter is not None:

@@ -178,8 +178,8 @@ KEYED = True  # see prep.steps.base: the Dask engine decides on the client from 
 
 # Seeds of the two 64-bit digests that stand for a row's compared values in compact keys (the
 # Dask engine's): two rows with different values get the same pair of digests with probability
-# about 2^-128 per pair, n^2 / 2^129 for n rows (3.7e-27 for a million). Polars' seeded hash is
-# the same in every process of one polars version, which Dask requires of its workers anyway.
+# about 2^-128 per pair, n^2 / 2^129 for n rows (1.5e-27 for a million). Polars' seeded hash is
+# the same in every process of one polars version; the Dask engine refuses workers with another.
 DIGEST_SEEDS = (0x5A17_E0D1, 0x0DD5_EED5)
 
 
@@ -196,19 +196,20 @@ def keys(table: pl.DataFrame, config: Config, ctx: StepContext, *, compact: bool
     _check_columns(table, [ctx.label], "label")
     if config.time_column is not None:
         _check_columns(table, [config.time_column], f"{NAME}.time_column")
-    values = _key_exprs(columns, case_sensitive=config.case_sensitive)
-    empty = pl.all_horizontal([v == "" for v in values]).alias("_empty")
-    if compact:
-        values = [pl.struct(values).hash(seed).alias(f"_k{j}") for j, seed in enumerate(DIGEST_SEEDS)]
-    return table.select(
+    out = table.select(
         "row_id",
         "source",
         "source_row",
-        *values,
-        empty,
+        *_key_exprs(columns, case_sensitive=config.case_sensitive),
         pl.col(ctx.label).cast(pl.String).alias("_label"),
         *([_times(table, config.time_column).alias("_time")] if config.time_column else []),
     )
+    names = [f"_k{i}" for i in range(len(columns))]
+    out = out.with_columns(pl.all_horizontal([pl.col(k) == "" for k in names]).alias("_empty"))
+    if compact:  # the values lowercased once, above, then hashed
+        digests = [pl.struct(names).hash(seed).alias(f"_d{j}") for j, seed in enumerate(DIGEST_SEEDS)]
+        out = out.with_columns(digests).drop(names).rename({f"_d{j}": f"_k{j}" for j in range(len(DIGEST_SEEDS))})
+    return out
 
 
 def decide(keys: pl.DataFrame, config: Config, ctx: StepContext) -> RowPlan:

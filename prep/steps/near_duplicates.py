@@ -39,7 +39,8 @@ from prep.errors import DataError
 from prep.ledger import Reason
 from prep.neardup import EXHAUSTIVE_MAX_ROWS, Settings, find, normalise_texts, similarity_of
 from prep.neardup.report import DUPLICATES_SCHEMA
-from prep.steps.base import StepContext
+from prep.neardup.search import Texts, text_digests
+from prep.steps.base import RowPlan, StepContext
 from prep.steps.exact_duplicates import _check_columns, _times
 
 NAME = "near_duplicates"
@@ -101,17 +102,17 @@ class Config:
         )
 
 
-def _preference(table: pl.DataFrame, texts: pl.Series, config: Config) -> np.ndarray:
+def _preference(keys: pl.DataFrame, config: Config) -> np.ndarray:
     """Global order of preference for keeping (0 = most preferred), per row."""
-    n = table.height
+    n = keys.height
     pos = np.arange(n)
     if config.keep == "first":
         return pos
     if config.keep == "longest":
-        length = texts.str.len_chars().to_numpy()
+        length = keys.get_column("_len").to_numpy()
         order = np.lexsort((pos, -length))
     else:
-        times = _times(table, config.time_column)
+        times = keys.get_column("_time")
         t = times.dt.epoch("us").to_numpy()
         missing = times.is_null().to_numpy()
         t = np.where(missing, 0, t).astype(np.int64)
@@ -135,20 +136,57 @@ def sign_ahead(part: pl.DataFrame, config: Config, text_columns: list[str]) -> t
     return sign(normalise_texts(part, columns, config.punctuation), config.settings())
 
 
+KEYED = True  # see prep.steps.base: the Dask engine decides on the client from the keys alone
+FETCHES_TEXTS = True  # ``decide`` takes ``fetch``: the texts of the rows whose pairs it verifies
+
+
 def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame:
     """Mark near-duplicate clusters and set aside all but one row of each; see the module docstring."""
+    return decide(keys(table, config, ctx, compact=False), config, ctx).carry_out(table)
+
+
+def keys(table: pl.DataFrame, config: Config, ctx: StepContext, *, compact: bool) -> pl.DataFrame:
+    """Row-local: provenance, two 64-bit digests of the compared text (``_d0``, ``_d1``; see
+    :func:`prep.neardup.search.text_digests`), ``_nonempty``, ``_label``, what ``keep`` needs
+    (``_len`` in characters, ``_time``) and, unless ``compact``, the compared text (``_text``)."""
     columns = list(config.columns) if config.columns is not None else list(ctx.text)
     _check_columns(table, columns, f"{NAME}.columns")
     _check_columns(table, [ctx.label], "label")
     if config.time_column is not None:
         _check_columns(table, [config.time_column], f"{NAME}.time_column")
-    if config.method == "exhaustive" and table.height > EXHAUSTIVE_MAX_ROWS:
+    texts = normalise_texts(table, columns, config.punctuation).fill_null("")
+    out = table.select("row_id", "source", "source_row", pl.col(ctx.label).cast(pl.String).alias("_label"))
+    out = out.with_columns(*text_digests(texts).get_columns(), (texts.str.len_bytes() > 0).alias("_nonempty"))
+    if config.keep == "longest":
+        out = out.with_columns(texts.str.len_chars().alias("_len"))
+    if config.time_column is not None:
+        out = out.with_columns(_times(table, config.time_column).alias("_time"))
+    return out if compact else out.with_columns(texts.alias("_text"))
+
+
+def fetch_texts(part: pl.DataFrame, config: Config, ctx: StepContext, rows) -> pl.Series:
+    """The compared texts of ``rows`` (positions in ``part``), as :func:`keys` sees them."""
+    columns = list(config.columns) if config.columns is not None else list(ctx.text)
+    return normalise_texts(part[rows], columns, config.punctuation).fill_null("")
+
+
+def decide(keys: pl.DataFrame, config: Config, ctx: StepContext, fetch=None) -> RowPlan:
+    """The whole table's decision from its :func:`keys`: ledger rows, cluster table, facts, the
+    ``_cluster`` column. ``fetch(rows)`` gives the compared texts of the given rows (positions)
+    when ``keys`` does not hold them (``compact``): only rows in pairs verified exactly are fetched."""
+    columns = list(config.columns) if config.columns is not None else list(ctx.text)
+    table = keys  # provenance for the ledger and the cluster table
+    if config.method == "exhaustive" and keys.height > EXHAUSTIVE_MAX_ROWS:
         raise DataError(
             f"`{NAME}.method: exhaustive` compares all pairs and accepts at most {EXHAUSTIVE_MAX_ROWS:,} rows; "
-            f"the table has {table.height:,}. Use `method: minhash_lsh`."
+            f"the table has {keys.height:,}. Use `method: minhash_lsh`."
         )
-
-    texts = normalise_texts(table, columns, config.punctuation)
+    digests = keys.select("_d0", "_d1")
+    nonempty = keys.get_column("_nonempty").to_numpy()
+    if "_text" in keys.columns:
+        texts = Texts(digests, nonempty, keys.get_column("_text").gather)
+    else:
+        texts = Texts(digests, nonempty, fetch)
     settings = config.settings()
     # Band keys signed ahead (the Dask engine signs on the workers) are looked up; the runner's
     # audit then reuses this search's keys and pairs.
@@ -156,8 +194,8 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
     cluster = found.cluster
     in_cluster = cluster >= 0
 
-    labels = table.get_column(ctx.label).cast(pl.String)
-    pref = _preference(table, texts, config)
+    labels = keys.get_column("_label")
+    pref = _preference(keys, config)
     work = pl.DataFrame({
         "_pos": np.arange(table.height, dtype=np.int64),
         "_c": cluster,
@@ -261,5 +299,4 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
     cluster_col = pl.select(
         pl.when(c >= 0).then(pl.concat_str([pl.lit("near:"), c.cast(pl.String)])).alias(CLUSTER_COLUMN)
     ).to_series()
-    result = table.with_columns(cluster_col)
-    return result.filter(pl.Series(keep_mask)) if config.action == "set_aside" else result
+    return RowPlan(keep=pl.Series(keep_mask) if config.action == "set_aside" else None, columns=(cluster_col,))

@@ -168,9 +168,9 @@ def test_audit_gives_the_same_counts_with_and_without_the_remembered_keys():
     # keys and signs the rest, and the two must meet in the same buckets.
     step_texts = shingles.normalise_texts(pl.concat([frame[:300], pl.DataFrame({"title": ["an extra row"]})]), ["title"])
     find(step_texts, Settings(), remember_keys=True)
-    assert search._MEMO.texts is not None
+    assert search._MEMO.digests is not None
     assert leakage_audit(splits, ["title"], Settings()) == fresh
-    assert search._MEMO.texts is None  # the audit releases them
+    assert search._MEMO.digests is None  # the audit releases them
     # Keys remembered for other settings are not used.
     find(step_texts, Settings(permutations=64), remember_keys=True)
     assert leakage_audit(splits, ["title"], Settings()) == fresh
