@@ -650,7 +650,8 @@ def _start_signing(client: Any, pipeline: Pipeline, table: _Table, later: tuple)
     if spec is None:
         return None
     table.in_use = True
-    return [client.submit(_sign_task, pipeline, spec.config, p, pure=False) for p in table.parts]
+    # Lowest priority: the keyed steps' tasks before it run first, the signing fills the gaps.
+    return [client.submit(_sign_task, pipeline, spec.config, p, pure=False, priority=-1) for p in table.parts]
 
 
 def _finish_signing(client: Any, futures: list[Any]) -> float:
