@@ -49,7 +49,9 @@ class _Printer:
     def __call__(self, event: str, **data: Any) -> None:
         if self.quiet:
             return
-        if event == "read":
+        if event == "engine":
+            click.echo(f"  engine {data['description']}", err=True)
+        elif event == "read":
             extra = f" ({data['unreadable']:,} unreadable)" if data["unreadable"] else ""
             line = f"  read   {data['source']:<22} {data['rows']:>10,} rows{extra}"
             click.echo(f"{line:<66} {data['seconds']:7.2f} s", err=True)
@@ -100,8 +102,9 @@ def cli() -> None:
 
 @cli.command()
 @click.argument("pipeline", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("--out", "out", type=_PathOrUrl(file_okay=False, path_type=Path),
-              help="Output folder or fsspec URL such as s3://bucket/out (overrides `output` in the pipeline file).")
+@click.option("--out", "out", type=_PathOrUrl(file_okay=False, path_type=Path), metavar="DIRECTORY|URL",
+              help="Output folder (relative to the current folder) or fsspec URL such as s3://bucket/out "
+              "(overrides `output` in the pipeline file, which is relative to the pipeline file).")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the final accounting line.")
 @click.option(
     "--force",
@@ -113,8 +116,9 @@ def cli() -> None:
     "--engine",
     type=click.Choice(["local", "dask"]),
     default=None,
-    help="local: one process (the default); dask: row-local steps run per partition on a Dask cluster. "
-    "Overrides `engine` in the pipeline file.",
+    help="local: one process (the default); dask: row-local steps run per partition on a Dask cluster, "
+    "and the duplicate and rare-class steps decide from keys the workers send (needs the `dask` extra: "
+    'pip install "prep[dask]"). Overrides `engine` in the pipeline file.',
 )
 @click.option(
     "--scheduler",

@@ -543,6 +543,9 @@ def run_pipeline_dask(
     )
     stage = ["reading the sources"]
     with _client(scheduler, settings.workers) as client, _dask_failures(lambda: stage[0]):
+        workers = len(client.scheduler_info().get("workers", {}))
+        where = f"the scheduler at {scheduler}" if scheduler else "a local cluster"
+        report("engine", description=f"dask: {where}, {workers} worker{'s' if workers != 1 else ''}, partitions of {partition_rows:,} rows")
         ledger = Ledger()
         table = _Table(client, remote_pipeline, partition_rows)
         table.columns = [*PROVENANCE_COLUMNS, *pipeline.canonical_columns]

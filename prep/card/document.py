@@ -278,7 +278,7 @@ def _languages(card: dict) -> list[Block]:
                 [
                     ("Detector", _opt(lang.get("backend"))),
                     ("Minimum characters for a guess", _opt(lang.get("min_chars"))),
-                    ("Too short to guess", _opt(lang.get("too_short"))),
+                    ("Too short to guess (rows reaching the language step)", _opt(lang.get("too_short"))),
                     ("Languages kept", _opt(", ".join(lang["keep"]) if lang.get("keep") else ("all" if "keep" in lang else None))),
                     ("Rows set aside for their language", _opt(lang.get("rows_set_aside"))),
                 ]
@@ -287,7 +287,8 @@ def _languages(card: dict) -> list[Block]:
         counts = lang.get("counts")
         if isinstance(counts, dict):
             out.append(Table(["Language", "Rows"], [[k, v] for k, v in sorted(counts.items())],
-                             caption="Languages detected (before any were set aside)", numeric=(1,)))
+                             caption="Languages detected in the rows reaching the language step (later steps set some "
+                                     "of them aside; the languages of the splits are in the table below)", numeric=(1,)))
     else:
         out.append(Para(["Language detection: not run."]))
     mix = lang.get("mix")
@@ -452,7 +453,8 @@ def _duplicates(card: dict) -> list[Block]:
             Fields(
                 [
                     ("Exact-duplicate groups", _opt(exact.get("groups"))),
-                    ("Rows removed as exact duplicates", _opt(exact.get("rows_removed"))),
+                    ("Rows set aside as exact copies", _opt(exact.get("exact_duplicate_rows"))),
+                    ("Rows set aside for conflicting labels", _opt(exact.get("label_conflict_rows"))),
                     ("Groups with conflicting labels", _opt(exact.get("label_conflicts"))),
                     ("Kept copy", _opt(exact.get("keep"))),
                     ("Conflict policy", _opt(exact.get("conflicts"))),
@@ -677,7 +679,9 @@ def _maintenance(card: dict) -> list[Block]:
         Para(
             [
                 "Running the same pipeline file on the same inputs with the same version of prep gives "
-                "byte-identical outputs. To fix a hand-written field, edit ",
+                "byte-identical splits, ledger and card.json (with either engine, apart from card.json's "
+                "engine); the manifest's run times and croissant.json's date change with every run. "
+                "To fix a hand-written field, edit ",
                 Code("card.json"),
                 " and run ",
                 Code("prep card OUTPUT_DIR"),
@@ -692,15 +696,29 @@ def _risks(card: dict) -> list[Block]:
     c = card["cautions"]
     acc = card["accounting"]
     rare = c["rare_classes"]["classes"]
+    handled = next((st.get("facts", {}).get("classes") for st in card.get("steps", []) if st.get("name") == "rare_classes"), None)
+    handled = [h for h in handled if isinstance(h, dict)] if isinstance(handled, list) else []
+    aside = [h for h in handled if h.get("action") == "set_aside"]
+    earlier = (
+        f" The rare_classes step set aside {len(aside)} smaller "
+        + ("class" if len(aside) == 1 else "classes")
+        + f" before the split ({', '.join(str(h.get('class')) for h in aside)}: "
+        + _rows(sum(int(h.get("rows") or 0) for h in aside))
+        + ")."
+        if aside
+        else ""
+    )
     items: list[Parts] = [
         [
-            f"Rare classes ({len(rare)}): " + ", ".join(rare) + ". Metrics on them rest on very few rows."
+            f"Rare classes left in the splits ({len(rare)}): " + ", ".join(rare) + ". Metrics on them rest on very few rows."
+            + earlier
             if rare
-            else "Rare classes: none."
+            else "Rare classes left in the splits: none." + earlier
         ],
         [
-            f"Label conflicts: {_rows(c['label_conflict_rows'])} had the same text as another row but a "
-            "different label and were set aside; the labels of similar rows may still disagree."
+            f"Label conflicts: {_rows(c['label_conflict_rows'])} had the same text as another row"
+            + (" (or, in a near-duplicate cluster, nearly the same)" if c.get("near_duplicate_label_conflicts") else "")
+            + " but a different label and were set aside; the labels of similar rows may still disagree."
             if c["label_conflict_rows"]
             else "Label conflicts: none were set aside."
         ],

@@ -54,7 +54,9 @@ def _block(block: Any) -> str | None:
         # Two trailing spaces make a Markdown line break; the last line needs none.
         return "  \n".join(lines)
     if isinstance(block, Table):
-        return _table(block.header, [[_cell(c) for c in row] for row in block.rows], empty=block.empty)
+        table = _table(block.header, [[_cell(c) for c in row] for row in block.rows], empty=block.empty)
+        # Markdown tables have no caption: the HTML card's caption goes on a line of its own above.
+        return f"*{_esc(block.caption)}*\n\n{table}" if block.caption else table
     if isinstance(block, Bullets):
         return "\n".join(f"- {_inline(item)}" for item in block.items)
     if isinstance(block, Quote):
