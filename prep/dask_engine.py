@@ -414,7 +414,12 @@ def _client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
     if scheduler:
         try:
             client = Client(scheduler, timeout=CONNECT_TIMEOUT)
-        except (OSError, TimeoutError, ValueError) as exc:
+        except ValueError as exc:  # an address Dask cannot parse (e.g. http://…): a usage error
+            raise PipelineError(
+                f"`{scheduler}` is not a Dask scheduler address ({exc}).",
+                hint="Give it as `dask scheduler` prints it, e.g. tcp://host:8786.",
+            ) from exc
+        except (OSError, TimeoutError) as exc:
             raise PrepError(
                 f"Cannot reach the Dask scheduler at `{scheduler}` ({type(exc).__name__}).",
                 hint="Start it with `dask scheduler` and check the address, or leave out --scheduler to use a local cluster.",

@@ -241,6 +241,15 @@ def test_unreachable_scheduler_is_one_line_exit_1(demo, tmp_path, cli_runner, mo
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
 
 
+def test_malformed_scheduler_address_is_a_usage_error(demo, tmp_path, cli_runner):
+    # A scheme Dask has no transport for is a mistake in the command line (exit 2), not a network failure.
+    result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask", "--scheduler", "http://127.0.0.1:9"])
+    assert result.exit_code == 2
+    lines = [line for line in result.stderr.splitlines() if line.startswith("Error:")]
+    assert len(lines) == 1 and "`http://127.0.0.1:9` is not a Dask scheduler address" in lines[0]
+    assert "Traceback" not in result.output + result.stderr
+
+
 def test_scheduler_without_dask_engine_is_a_usage_error(demo, tmp_path, cli_runner):
     result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--scheduler", "tcp://127.0.0.1:9"])
     assert result.exit_code == 2
