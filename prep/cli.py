@@ -117,7 +117,7 @@ def cli() -> None:
     type=click.Choice(["local", "dask"]),
     default=None,
     help="local: one process (the default); dask: row-local steps run per partition on a Dask cluster, "
-    "and the duplicate and rare-class steps decide from keys the workers send (needs the `dask` extra: "
+    "and the duplicate, schema and rare-class steps decide from keys the workers send (needs the `dask` extra: "
     'pip install "prep[dask]"). Overrides `engine` in the pipeline file.',
 )
 @click.option(

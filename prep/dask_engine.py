@@ -23,8 +23,8 @@ How a run is spread (what runs where, and what travels to the client):
    label spellings of the whole table: phase 1 cleans the text columns per partition and returns
    the counts of the cleaned label spellings (class names and counts, small), the client decides
    the mapping exactly as the step does, phase 2 applies it per partition.
-3. **Keyed global steps** (``exact_duplicates``, ``near_duplicates``, ``rare_classes``: ``KEYED``
-   in their module, see :mod:`prep.steps.base`) while the table is still on the workers: each
+3. **Keyed global steps** (``exact_duplicates``, ``near_duplicates``, ``schema``, ``rare_classes``:
+   ``KEYED`` in their module and its ``can_key`` if any, see :mod:`prep.steps.base`) while the table is still on the workers: each
    partition's keys are made on its worker (provenance, label, 128-bit digests of the compared
    values instead of the texts, a text length or parsed time when ``keep`` needs one); the
    client concatenates them and runs the step's own ``decide`` over the whole table's keys
@@ -36,7 +36,9 @@ How a run is spread (what runs where, and what travels to the client):
    from the workers the compared texts of the rows whose candidate pairs it verifies exactly
    (:func:`_fetcher`), nothing else. Workers must run the client's polars (checked:
    :func:`_check_versions`).
-   **Other global steps** (``schema``, and any step neither in :data:`ROW_LOCAL` nor keyed) run
+   ``schema``'s keys are the (column, check) pairs each row fails in pandera's one-row checks
+   on its partition, the table-level failures, and digests for its uniqueness constraints.
+   **Other global steps** (any step neither in :data:`ROW_LOCAL` nor keyed) run
    on the client over the collected table, through the same code path as the local engine; once
    collected, the table stays on the client, and every later step runs there (keyed or
    row-local: the same result).
@@ -585,7 +587,7 @@ def run_pipeline_dask(
                 timings.append(timing)
                 report("step", step=spec.name, rows_in=timing.rows_in, rows_out=timing.rows_out, seconds=timing.seconds)
                 continue
-            if table.local is None and table.parts and getattr(step_module(spec.name), "KEYED", False):
+            if table.local is None and table.parts and _keyable(spec, remote_pipeline):
 
                 def sign_ahead(_position: int = position, _name: str = spec.name) -> None:
                     """Start signing ahead (once); for near_duplicates itself, wait for it and remember it."""
@@ -597,7 +599,11 @@ def run_pipeline_dask(
                         _finish_signing(client, signing)
                         signing, table.in_use = None, False
 
-                sf, timing, outs = _run_keyed(client, remote_pipeline, spec, table, ledger, out, sign_ahead)
+                keyed = _run_keyed(client, remote_pipeline, spec, table, ledger, out, sign_ahead)
+            else:
+                keyed = None
+            if keyed is not None:
+                sf, timing, outs = keyed
                 step_facts.append(sf)
                 timings.append(timing)
                 outputs.update(outs)
@@ -673,6 +679,17 @@ def _finish_signing(client: Any, futures: list[Any]) -> float:
     return time.perf_counter() - t0
 
 
+def _keyable(spec: Any, pipeline: Pipeline) -> bool:
+    """Whether the step decides from keys here (``KEYED``, and its ``can_key`` if it has one)."""
+    from prep.run import step_context
+
+    module = step_module(spec.name)
+    if not getattr(module, "KEYED", False):
+        return False
+    can_key = getattr(module, "can_key", None)
+    return can_key is None or bool(can_key(spec.config, step_context(pipeline, spec.name, Ledger())))
+
+
 def _keys_task(pipeline: Pipeline, name: str, config: Any, part: pl.DataFrame) -> pl.DataFrame:
     """A keyed step's keys of one partition (row-local; texts as digests)."""
     from prep.run import step_context
@@ -736,6 +753,8 @@ def _run_keyed(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger
     frames = client.gather(futures)
     del futures
     heights = [f.height for f in frames]
+    if not sum(heights):  # no rows left: the step runs on the (empty) collected table instead
+        return None
     keys = pl.concat(frames, how="vertical")
     del frames
     ctx = step_context(pipeline, spec.name, ledger)

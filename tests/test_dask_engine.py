@@ -125,16 +125,16 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     from prep.neardup import minhash
 
     from prep import dask_engine
-    from prep.steps import exact_duplicates, near_duplicates
+    from prep.steps import exact_duplicates, near_duplicates, rare_classes, schema
 
     signed_here = []
     real_signatures = minhash.signatures_by
     monkeypatch.setattr(minhash, "signatures_by", lambda *a, **k: signed_here.append(1) or real_signatures(*a, **k))
     # Keyed steps: the client sees only their keys (provenance, label, digests), never the table:
-    # it runs neither their `apply` nor their `keys` (those run on the workers). rare_classes comes
-    # after schema, which collects the table (see test_keyed_steps_decide_from_keys_alone).
+    # it runs neither their `apply` nor their `keys` (those run on the workers). Every global step
+    # of the demo is keyed, so the table first comes to the client for the split.
     applied_here, keys_seen, fetched = [], {}, []
-    _watch_keyed(monkeypatch, (exact_duplicates, near_duplicates), applied_here, keys_seen)
+    _watch_keyed(monkeypatch, (exact_duplicates, near_duplicates, schema, rare_classes), applied_here, keys_seen)
     real_fetcher = dask_engine._fetcher
 
     def counting_fetcher(*args):
@@ -150,7 +150,7 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     )
     assert not signed_here, "the client signed texts the workers had signed"
     assert not applied_here, f"the client ran {applied_here} on the whole table"
-    assert set(keys_seen) == {"exact_duplicates", "near_duplicates"}
+    assert set(keys_seen) == {"exact_duplicates", "near_duplicates", "schema", "rare_classes"}
     _assert_no_text(keys_seen)
     # Texts travel only for the rows whose pairs the search verifies exactly (the keys were signed
     # ahead on the workers, so none is fetched for signing).
@@ -364,3 +364,32 @@ def test_workers_with_another_polars_are_refused_in_one_line():
         dask_engine._check_versions(FakeClient("0.0.1"), "tcp://10.0.0.4:8786")
     message = str(info.value)
     assert "\n" not in message and "polars 0.0.1" in message and f"this machine {polars.__version__}" in message
+
+
+def test_keyed_step_with_no_rows_left_runs_on_the_collected_table(small_pipeline, tmp_path):
+    # When every partition is empty the keys hold no row (and no table-level schema failure), so
+    # the step must see the (empty) table itself, as the local engine does: _run_keyed declines.
+    # A client stand-in that runs each task at once (no cluster needed for this decision).
+    from prep import dask_engine
+    from prep.pipeline import PROVENANCE_COLUMNS
+
+    class Immediate:
+        def submit(self, function, *args, **kwargs):
+            return function(*args)
+
+        def gather(self, values):
+            return list(values)
+
+    pipeline = load_pipeline(small_pipeline)
+    spec = next(s for s in pipeline.steps if s.name == "exact_duplicates")
+    table = dask_engine._Table(Immediate(), pipeline, 10)
+    table.columns = [*PROVENANCE_COLUMNS, *pipeline.canonical_columns]
+    empty = pl.DataFrame(schema={c: (pl.Int64 if c == "source_row" else pl.String) for c in table.columns})
+    table.parts = [empty, empty]
+    ledger = dask_engine.Ledger()
+    assert dask_engine._run_keyed(Immediate(), pipeline, spec, table, ledger, tmp_path / "o", lambda: None) is None
+    assert len(ledger) == 0
+    table.parts = [empty, empty.vstack(pl.DataFrame({c: ["x:0" if c != "source_row" else 0] for c in table.columns},
+                                                    schema=empty.schema))]
+    sf, timing, _ = dask_engine._run_keyed(Immediate(), pipeline, spec, table, ledger, tmp_path / "o", lambda: None)
+    assert (sf.rows_in, sf.rows_out) == (1, 1)

@@ -27,6 +27,7 @@ exactly the rows pandera lists in its failure cases.
 
 from __future__ import annotations
 
+import copy
 import io
 from dataclasses import dataclass
 from pathlib import Path
@@ -43,7 +44,7 @@ from ruamel.yaml.error import YAMLError
 from prep.config import ConfigValueError
 from prep.errors import DataError, PipelineError
 from prep.ledger import Reason
-from prep.steps.base import StepContext
+from prep.steps.base import RowPlan, StepContext
 
 NAME = "schema"
 
@@ -199,7 +200,12 @@ def _pct(part: int, whole: int) -> str:
 def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame:
     """Set aside rows failing the schema's checks; raise DataError if the table as a whole fails."""
     schema = load_schema(ctx.pipeline_dir / config.file, shown_as=config.file)
-    raw = failure_cases(schema, table)
+    failed = _conclude(_cases(failure_cases(schema, table)), table, config, ctx)
+    return table.filter(~failed)
+
+
+def _cases(raw: pl.DataFrame) -> pl.DataFrame:
+    """pandera's failure cases as (column, check, index); never a failing value."""
     # For "column missing" and "column not in schema" (strict) failures pandera puts the
     # schema's name in `column` and the column's name in `failure_case`: use the latter.
     # Otherwise `failure_case` is never read, since it may hold a value from the data.
@@ -208,12 +214,17 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
         column = pl.when(names_column).then(pl.col("failure_case").cast(pl.String)).otherwise(pl.col("column"))
     else:
         column = pl.col("column")
-    cases = raw.select(
+    return raw.select(
         column.cast(pl.String).alias("column"),
         pl.col("check").cast(pl.String),
         pl.col("index").cast(pl.Int64),
     )
 
+
+def _conclude(cases: pl.DataFrame, table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.Series:
+    """From the failure cases of the whole table (``table`` holds its provenance columns): the
+    failure-cases output, the facts, the ledger rows, and the mask of failing rows; DataError when
+    the table as a whole fails or too many rows do."""
     # Schema-level failures have no row index.
     table_level = cases.filter(pl.col("index").is_null()).unique(maintain_order=True)
     row_level = (
@@ -286,4 +297,96 @@ def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame
 
     failed = pl.int_range(0, n_rows, dtype=pl.Int64, eager=True).is_in(per_row.get_column("index").implode())
     ctx.set_aside(table.filter(failed), Reason.SCHEMA, detail=per_row.get_column("detail"))
-    return table.filter(~failed)
+    return failed
+
+
+# ---------------------------------------------------------------------------------------
+# The step from keys (the Dask engine; see prep.steps.base)
+# ---------------------------------------------------------------------------------------
+
+KEYED = True  # when :func:`can_key`: the Dask engine decides on the client from the keys alone
+
+# Seeds of the two 64-bit digests of the values of a uniqueness constraint (see exact_duplicates).
+DIGEST_SEEDS = (0x5C4E_0A11, 0x0D16_E575)
+CASE_TYPE = pl.List(pl.Struct({"column": pl.String, "check": pl.String}))
+
+
+def _split_schema(schema: pa.DataFrameSchema) -> tuple[pa.DataFrameSchema, list[tuple[str | None, list[str], str]]]:
+    """(the schema without its uniqueness constraints: every other check looks at one row,
+    the uniqueness constraints as (pandera's column label, columns, pandera's check name))."""
+    element = copy.deepcopy(schema)
+    uniques: list[tuple[str | None, list[str], str]] = []
+    for name, column in element.columns.items():
+        if column.unique:
+            uniques.append((name, [name], "field_uniqueness"))
+            column.unique = False
+    if element.unique:
+        # pandera labels these failures with the schema's name (null without one).
+        uniques.append((element.name, list(element.unique), "multiple_fields_uniqueness"))
+        element.unique = None
+    return element, uniques
+
+
+def can_key(config: Config, ctx: StepContext) -> bool:
+    """Whether the keys reproduce pandera exactly: not when a uniqueness constraint compares values
+    that pandera first coerces (digests are taken of the values as they are)."""
+    schema = load_schema(ctx.pipeline_dir / config.file, shown_as=config.file)
+    _, uniques = _split_schema(schema)
+    compared = {c for _, columns, _ in uniques for c in columns}
+    return not (compared and (schema.coerce or any(schema.columns[c].coerce for c in compared if c in schema.columns)))
+
+
+def keys(part: pl.DataFrame, config: Config, ctx: StepContext, *, compact: bool) -> pl.DataFrame:
+    """Row-local: provenance; ``_fails``, the (column, check) pairs a row fails among the checks
+    that look at one row (pandera on this partition); ``_table_fails``, the failures of the
+    table as a whole (the same in every partition: missing columns, dtypes), on every row; and
+    per uniqueness constraint k two 64-bit digests ``_u{k}_0``, ``_u{k}_1`` of its values (nulls
+    included: pandera counts equal nulls as duplicates)."""
+    schema = load_schema(ctx.pipeline_dir / config.file, shown_as=config.file)
+    element, uniques = _split_schema(schema)
+    cases = _cases(failure_cases(element, part))
+    table_level = cases.filter(pl.col("index").is_null()).unique(maintain_order=True).select("column", "check")
+    per_row = (
+        cases.filter(pl.col("index").is_not_null())
+        .group_by("index", maintain_order=True)
+        .agg(pl.struct("column", "check").alias("_fails"))
+    )
+    out = part.select(
+        pl.col("row_id").cast(pl.String, strict=False),
+        pl.col("source").cast(pl.String, strict=False),
+        pl.col("source_row").cast(pl.Int64, strict=False),
+        pl.int_range(pl.len(), dtype=pl.Int64).alias("index"),
+    )
+    out = out.join(per_row, on="index", how="left", maintain_order="left").drop("index")
+    out = out.with_columns(pl.col("_fails").fill_null(pl.lit([], dtype=CASE_TYPE)).cast(CASE_TYPE))
+    whole = table_level.to_dicts() if table_level.height else None
+    out = out.with_columns(pl.lit(whole, dtype=CASE_TYPE).alias("_table_fails"))
+    for k, (_, columns, _) in enumerate(uniques):
+        if all(c in part.columns for c in columns):
+            digests = part.select(
+                pl.struct([pl.col(c) for c in columns]).hash(seed).alias(f"_u{k}_{j}") for j, seed in enumerate(DIGEST_SEEDS)
+            )
+            out = out.with_columns(digests.get_columns())
+    return out
+
+
+def decide(keys: pl.DataFrame, config: Config, ctx: StepContext) -> RowPlan:
+    """The whole table's failure cases from its :func:`keys`, then exactly what :func:`apply` does."""
+    schema = load_schema(ctx.pipeline_dir / config.file, shown_as=config.file)
+    _, uniques = _split_schema(schema)
+    table_level = keys.get_column("_table_fails").drop_nulls().head(1).explode().struct.unnest() if keys.height else None
+    parts = []
+    if table_level is not None and table_level.height:
+        parts.append(table_level.select("column", "check", pl.lit(None, dtype=pl.Int64).alias("index")))
+    rows = keys.select(pl.int_range(pl.len(), dtype=pl.Int64).alias("index"), "_fails").explode("_fails").drop_nulls("_fails")
+    parts.append(rows.select(pl.col("_fails").struct.field("column"), pl.col("_fails").struct.field("check"), "index"))
+    for k, (label, _, check) in enumerate(uniques):
+        digests = [f"_u{k}_0", f"_u{k}_1"]
+        if all(d in keys.columns for d in digests):
+            dup = keys.select(pl.int_range(pl.len(), dtype=pl.Int64).alias("index"), pl.struct(digests).is_duplicated().alias("dup"))
+            parts.append(dup.filter("dup").select(
+                pl.lit(label, dtype=pl.String).alias("column"), pl.lit(check, dtype=pl.String).alias("check"), "index"
+            ))
+    cases = pl.concat([p.cast({"column": pl.String, "check": pl.String, "index": pl.Int64}) for p in parts], how="vertical")
+    failed = _conclude(cases, keys, config, ctx)
+    return RowPlan(keep=~failed)

@@ -148,3 +148,65 @@ def test_near_duplicates_fetches_only_texts_of_rows_it_verifies(make_table, make
     near_duplicates.decide(keys, config, make_ctx(near_duplicates.NAME), fetch=fetch)
     search.forget_keys()
     assert set(fetched) == set(range(table.height))
+
+
+def _schema_file(folder, *, frame_unique=None, missing_column=False):
+    """A pandera schema written as the step reads it: element-wise checks, a unique column, and
+    optionally a uniqueness constraint over two columns or a required column the table lacks."""
+    import pandera.polars as pa
+
+    from prep.steps.schema import dump_schema
+
+    columns = {
+        "row_id": pa.Column(str, unique=True),
+        "title": pa.Column(str, nullable=True, unique=True, checks=[pa.Check.str_length(0, 12)]),
+        "body": pa.Column(str, nullable=True, checks=[pa.Check.str_length(1, 70)]),
+        "label": pa.Column(str, nullable=True, checks=[pa.Check.isin(["Unlock", "Refund", "Tiny", "Rare one"])]),
+    }
+    if missing_column:
+        columns["channel"] = pa.Column(str)
+    schema = pa.DataFrameSchema(columns, unique=frame_unique, name="t")
+    (folder / "schema.yaml").write_text(dump_schema(schema), encoding="utf-8")
+    return "schema.yaml"
+
+
+@pytest.mark.parametrize("frame_unique", [None, ["title", "body"]])
+def test_schema_from_keys_on_partitions_equals_apply(frame_unique, make_table, make_ctx, tmp_path):
+    # Reference: the step's apply, i.e. pandera over the whole table. The keys carry pandera's
+    # one-row failures per partition and digests for the uniqueness constraints, which pandera's
+    # polars backend reports for every occurrence of a repeated value, equal nulls included.
+    from prep.steps import schema
+
+    table = make_table(_rows())
+    config = build(schema.Config, {"file": _schema_file(tmp_path, frame_unique=frame_unique), "max_failure_share": 1.0}, schema.NAME)
+    assert schema.can_key(config, make_ctx(schema.NAME))
+    whole = _run_whole(schema, table, config, make_ctx)
+    cut = _run_cut(schema, table, config, make_ctx)
+    assert whole[1].height > 10 and "field_uniqueness" in " ".join(whole[1]["detail"].to_list())
+    assert cut[0].equals(whole[0]) and cut[1].equals(whole[1]) and cut[2] == whole[2]
+    assert cut[3]["schema_failures"].equals(whole[3]["schema_failures"])
+
+
+def test_schema_from_keys_fails_like_apply_when_the_table_fails(make_table, make_ctx, tmp_path):
+    from prep.errors import DataError
+    from prep.steps import schema
+
+    table = make_table(_rows())
+    config = build(schema.Config, {"file": _schema_file(tmp_path, missing_column=True)}, schema.NAME)
+    messages = []
+    for run in (_run_whole, _run_cut):
+        with pytest.raises(DataError) as info:
+            run(schema, table, config, make_ctx)
+        messages.append(str(info.value))
+    assert messages[0] == messages[1] and "column `channel` is missing" in messages[0]
+
+
+def test_schema_with_coerced_unique_column_is_not_keyed(make_ctx, tmp_path):
+    # Digests are of the values as they are; pandera compares coerced values: no keys then.
+    import pandera.polars as pa
+
+    from prep.steps import schema
+    from prep.steps.schema import dump_schema
+
+    (tmp_path / "s.yaml").write_text(dump_schema(pa.DataFrameSchema({"source_row": pa.Column(int, unique=True, coerce=True)})), encoding="utf-8")
+    assert not schema.can_key(build(schema.Config, {"file": "s.yaml"}, schema.NAME), make_ctx(schema.NAME))
