@@ -393,3 +393,30 @@ def test_keyed_step_with_no_rows_left_runs_on_the_collected_table(small_pipeline
                                                     schema=empty.schema))]
     sf, timing, _ = dask_engine._run_keyed(Immediate(), pipeline, spec, table, ledger, tmp_path / "o", lambda: None)
     assert (sf.rows_in, sf.rows_out) == (1, 1)
+
+
+def test_schema_failure_from_keys_matches_the_local_engine(small_pipeline, cluster, tmp_path):
+    # Too many rows fail the schema (a length check every body fails): both engines stop with the
+    # same message and write the same failure cases beside the output folder, which stays untouched.
+    import pandera.polars as pa
+
+    from prep.steps.schema import dump_schema
+
+    schema = pa.DataFrameSchema({"row_id": pa.Column(str, unique=True), "body": pa.Column(str, checks=[pa.Check.str_length(1, 5)])})
+    (small_pipeline.parent / "s.yaml").write_text(dump_schema(schema), encoding="utf-8")
+    text = small_pipeline.read_text(encoding="utf-8").replace(
+        "  - rare_classes: {}\n", "  - schema: {file: s.yaml}\n  - rare_classes: {}\n"
+    )
+    path = small_pipeline.with_name("with-schema.yaml")
+    path.write_text(text, encoding="utf-8")
+    local, _ = cluster
+    messages, cases = [], []
+    for engine, out in (("local", tmp_path / "a" / "out"), ("dask", tmp_path / "b" / "out")):
+        extra = {"scheduler": local.scheduler_address, "partition_rows": 10} if engine == "dask" else {}
+        with pytest.raises(PrepError) as info:
+            run_pipeline(load_pipeline(path), out=out, engine=engine, **extra)
+        messages.append(str(info.value).replace(str(out.parent), "<dir>"))
+        cases.append(pl.read_parquet(out.parent / "out.schema_failures.parquet"))
+        assert not out.exists()
+    assert messages[0] == messages[1] and "The schema check failed for" in messages[0]
+    assert cases[0].equals(cases[1]) and cases[0].height > 10
