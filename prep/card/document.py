@@ -471,7 +471,7 @@ def _duplicates(card: dict) -> list[Block]:
         out.append(
             Fields(
                 [
-                    ("Near duplicates: method", _opt(near.get("method"))),
+                    ("Near-duplicate search", _opt(_METHOD_TEXT.get(near.get("method"), near.get("method")))),
                     ("Shingles", _opt(shingle_text)),
                     ("Jaccard threshold", _opt(near.get("threshold"))),
                     ("MinHash signing", _opt(_SIGNING_TEXT.get(near.get("signing")))),
@@ -581,8 +581,7 @@ def _baseline(card: dict) -> list[Block]:
         Fields(
             [
                 ("Model", _opt(base.get("model"))),
-                ("Features", _opt(base.get("features") if isinstance(base.get("features"), str) else
-                                  (_compact(base["features"]) if base.get("features") is not None else None))),
+                ("Features", _opt(_features_text(base.get("features")))),
                 ("Training rows used", _opt(_sample_text(base))),
                 ("Seed", _opt(base.get("seed"))),
             ]
@@ -690,6 +689,28 @@ def _maintenance(card: dict) -> list[Block]:
         )
     )
     return out
+
+
+_METHOD_TEXT = {
+    "minhash_lsh": "MinHash with LSH banding; every candidate pair verified exactly",
+    "exhaustive": "exhaustive: every pair compared exactly",
+}
+
+
+def _features_text(features: Any) -> str | None:
+    """The baseline's features in words when they have the usual keys; otherwise compact JSON."""
+    if features is None or isinstance(features, str):
+        return features
+    f = features if isinstance(features, dict) else {}
+    usual = ("word_ngrams", "char_ngrams", "char_analyzer", "text_columns", "hashed_columns_per_analyzer", "weighting")
+    if not all(k in f for k in usual) or not all(isinstance(f[k], list) and len(f[k]) == 2 for k in ("word_ngrams", "char_ngrams")):
+        return _compact(features)
+    (w0, w1), (c0, c1) = f["word_ngrams"], f["char_ngrams"]
+    return (
+        f"word {w0}-{w1}-grams and character {c0}-{c1}-grams ({f['char_analyzer']}) of "
+        f"{', '.join(map(str, f['text_columns']))}; {f['hashed_columns_per_analyzer']:,} hashed columns per kind; "
+        f"{f['weighting']}"
+    )
 
 
 def _risks(card: dict) -> list[Block]:
