@@ -19,6 +19,21 @@ import polars as pl
 PARALLEL_FROM_ROWS = 50_000
 SeriesOrFrame = TypeVar("SeriesOrFrame", pl.Series, pl.DataFrame)
 
+# Seeds of the two 64-bit hashes in :func:`digest_exprs`.
+DIGEST_SEEDS = (0x5A17_E0D1, 0x0DD5_EED5)
+
+
+def digest_exprs(columns: list[str], name: str) -> list[pl.Expr]:
+    """Two seeded 64-bit polars hashes of the values of ``columns`` taken together (one struct per
+    row), named ``{name}0`` and ``{name}1``: 128 bits that stand for the values in a keyed step's
+    keys (exact duplicates, near-duplicate texts, schema uniqueness). Two different values share
+    both with probability about 2^-128, n^2 / 2^129 for n rows (1.5e-27 for a million); equal
+    values, nulls included, always share them. Polars' seeded hash is the same in every process of
+    one polars version: the Dask engine refuses workers that run another (dask_engine._check_versions)."""
+    value = pl.struct(columns)
+    return [value.hash(seed).alias(f"{name}{j}") for j, seed in enumerate(DIGEST_SEEDS)]
+
+
 #: The characters with the Unicode property White_Space (PropList.txt; the same set as the regex
 #: class ``\s`` of polars' regex engine, which tests/test_text.py checks over every code point),
 #: the space itself left out.

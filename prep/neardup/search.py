@@ -67,16 +67,12 @@ class Found:
     facts: dict[str, Any] = field(default_factory=dict)
 
 
-# Seeds of the two 64-bit digests that identify a normalised text (identical texts, remembered
-# keys): two different texts share both with probability about 2^-128 (n^2 / 2^129 for n texts).
-# Polars' seeded hash is the same in every process of one polars version.
-DIGEST_SEEDS = (0x7E57_D16E, 0x51DE_0F7E)
-
-
 def text_digests(texts: pl.Series) -> pl.DataFrame:
-    """Two 64-bit digests (``_d0``, ``_d1``) of each normalised text (null as "")."""
-    texts = texts.fill_null("")
-    return pl.DataFrame({f"_d{k}": texts.hash(seed) for k, seed in enumerate(DIGEST_SEEDS)})
+    """The digests (``_d0``, ``_d1``; :func:`prep.text.digest_exprs`) that identify each normalised
+    text (null as ""): identical texts, remembered keys."""
+    from prep.text import digest_exprs
+
+    return pl.DataFrame({"_t": texts.fill_null("")}).select(digest_exprs(["_t"], "_d"))
 
 
 class Texts:

@@ -43,6 +43,7 @@ from prep.config import ConfigValueError
 from prep.errors import PipelineError
 from prep.ledger import Reason
 from prep.steps.base import RowPlan, StepContext
+from prep.text import digest_exprs
 
 NAME = "exact_duplicates"
 
@@ -176,12 +177,6 @@ def _check_columns(table: pl.DataFrame, needed: list[str], key: str) -> None:
 
 KEYED = True  # see prep.steps.base: the Dask engine decides on the client from the keys alone
 
-# Seeds of the two 64-bit digests that stand for a row's compared values in compact keys (the
-# Dask engine's): two rows with different values get the same pair of digests with probability
-# about 2^-128 per pair, n^2 / 2^129 for n rows (1.5e-27 for a million). Polars' seeded hash is
-# the same in every process of one polars version; the Dask engine refuses workers with another.
-DIGEST_SEEDS = (0x5A17_E0D1, 0x0DD5_EED5)
-
 
 def apply(table: pl.DataFrame, config: Config, ctx: StepContext) -> pl.DataFrame:
     """Set aside all but one row of each group of identical rows; see the module docstring."""
@@ -206,9 +201,8 @@ def keys(table: pl.DataFrame, config: Config, ctx: StepContext, *, compact: bool
     )
     names = [f"_k{i}" for i in range(len(columns))]
     out = out.with_columns(pl.all_horizontal([pl.col(k) == "" for k in names]).alias("_empty"))
-    if compact:  # the values lowercased once, above, then hashed
-        digests = [pl.struct(names).hash(seed).alias(f"_d{j}") for j, seed in enumerate(DIGEST_SEEDS)]
-        out = out.with_columns(digests).drop(names).rename({f"_d{j}": f"_k{j}" for j in range(len(DIGEST_SEEDS))})
+    if compact:  # the values lowercased once, above, then hashed (prep.text.digest_exprs)
+        out = out.with_columns(digest_exprs(names, "_d")).drop(names).rename({"_d0": "_k0", "_d1": "_k1"})
     return out
 
 

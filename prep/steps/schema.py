@@ -45,6 +45,7 @@ from prep.config import ConfigValueError
 from prep.errors import DataError, PipelineError
 from prep.ledger import Reason
 from prep.steps.base import RowPlan, StepContext
+from prep.text import digest_exprs
 
 NAME = "schema"
 
@@ -306,8 +307,6 @@ def _conclude(cases: pl.DataFrame, table: pl.DataFrame, config: Config, ctx: Ste
 
 KEYED = True  # when :func:`can_key`: the Dask engine decides on the client from the keys alone
 
-# Seeds of the two 64-bit digests of the values of a uniqueness constraint (see exact_duplicates).
-DIGEST_SEEDS = (0x5C4E_0A11, 0x0D16_E575)
 CASE_TYPE = pl.List(pl.Struct({"column": pl.String, "check": pl.String}))
 
 
@@ -363,10 +362,7 @@ def keys(part: pl.DataFrame, config: Config, ctx: StepContext, *, compact: bool)
     out = out.with_columns(pl.lit(whole, dtype=CASE_TYPE).alias("_table_fails"))
     for k, (_, columns, _) in enumerate(uniques):
         if all(c in part.columns for c in columns):
-            digests = part.select(
-                pl.struct([pl.col(c) for c in columns]).hash(seed).alias(f"_u{k}_{j}") for j, seed in enumerate(DIGEST_SEEDS)
-            )
-            out = out.with_columns(digests.get_columns())
+            out = out.with_columns(part.select(digest_exprs(columns, f"_u{k}_")).get_columns())
     return out
 
 
