@@ -70,7 +70,6 @@ from typing import Any
 
 import polars as pl
 
-from prep.config import to_plain
 from prep.errors import DataError, PipelineError, PrepError
 from prep.facts import SourceFacts, StepFacts
 from prep.read.urls import is_url
@@ -743,7 +742,7 @@ def _run_keyed(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger
     """A keyed step (``KEYED`` in its module, see :mod:`prep.steps.base`): its keys per partition
     on the workers, its decision on the client over the keys of the whole table (provenance,
     label, 128 bits of digest per row: never a text), the decision carried out per partition."""
-    from prep.run import StepTiming, raise_with_failure_cases, step_context
+    from prep.run import raise_with_failure_cases, step_context, step_record
 
     t0 = time.perf_counter()
     parts = table.remote()
@@ -758,7 +757,7 @@ def _run_keyed(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger
     keys = pl.concat(frames, how="vertical")
     del frames
     ctx = step_context(pipeline, spec.name, ledger)
-    before, ledger_rows = len(ledger), ledger.frame().height
+    ledger_rows = ledger.frame().height
     try:
         if getattr(module, "FETCHES_TEXTS", False):
             plan = module.decide(keys, spec.config, ctx, fetch=_fetcher(client, pipeline, spec, parts, heights))
@@ -768,21 +767,15 @@ def _run_keyed(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger
         exc.outputs = dict(ctx.outputs)
         raise_with_failure_cases(out, exc)
     rows_in = keys.height
-    rows_out = plan.rows_out(rows_in)
-    added = len(ledger) - before
-    if rows_in - rows_out != added:
-        raise AssertionError(f"step `{spec.name}` removed {rows_in - rows_out} rows but set aside {added}; this is a bug in prep.")
+    step_facts, timing = step_record(
+        spec, ctx.facts, rows_in, plan.rows_out(rows_in), ledger.frame().slice(ledger_rows), time.perf_counter() - t0
+    )
     offsets = [sum(heights[:i]) for i in range(len(heights))]
     table.parts = [
         client.submit(_carry_task, p, plan.part(o, h), pure=False) for p, o, h in zip(parts, offsets, heights)
     ]
     table.columns = table.columns + [c.name for c in plan.columns if c.name not in table.columns]
-    new = ledger.frame().slice(ledger_rows)
-    counts = dict(sorted((r, n) for r, n in new.group_by("reason").len().iter_rows()))
-    step_facts = StepFacts(
-        name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=rows_out, set_aside=counts, facts=dict(ctx.facts)
-    )
-    return step_facts, StepTiming(spec.name, rows_in, rows_out, time.perf_counter() - t0), dict(ctx.outputs)
+    return step_facts, timing, dict(ctx.outputs)
 
 
 def _partitionable(spec: Any, pipeline: Pipeline, columns: list[str]) -> bool:
@@ -793,7 +786,7 @@ def _partitionable(spec: Any, pipeline: Pipeline, columns: list[str]) -> bool:
 
 def _run_partitioned(client: Any, pipeline: Pipeline, spec: Any, table: _Table, ledger: Ledger):
     """One row-local step over every partition; its ledger rows and merged facts on the client."""
-    from prep.run import StepTiming
+    from prep.run import step_record
 
     t0 = time.perf_counter()
     parts = table.remote()
@@ -828,15 +821,9 @@ def _run_partitioned(client: Any, pipeline: Pipeline, spec: Any, table: _Table, 
     table.parts = new_parts
     if metas:
         table.columns = list(metas[0]["columns"])
-    ledger_before = len(ledger)
+    ledger_rows = ledger.frame().height
     for frame in calls:
         ledger.extend(frame)
     rows_out = sum(m["rows_out"] for m in metas)
-    added = len(ledger) - ledger_before
-    if rows_in - rows_out != added:
-        raise AssertionError(f"step `{spec.name}` removed {rows_in - rows_out} rows but set aside {added}; this is a bug in prep.")
-    new = pl.concat(calls) if calls else pl.DataFrame(schema={"reason": pl.String})
-    counts = dict(sorted((r, n) for r, n in new.group_by("reason").len().iter_rows()))
-    step_facts = StepFacts(name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=rows_out, set_aside=counts, facts=facts)
-    return step_facts, StepTiming(spec.name, rows_in, rows_out, time.perf_counter() - t0)
+    return step_record(spec, facts, rows_in, rows_out, ledger.frame().slice(ledger_rows), time.perf_counter() - t0)
 

@@ -284,7 +284,6 @@ def _apply_read_only(pipeline: Pipeline, spec: Any, module: Any, splits: dict[st
 def _apply_one(pipeline: Pipeline, spec: Any, module: Any, data: Any, ledger: Ledger, phase: str):
     """Run one step: (its result, (facts, timing, outputs))."""
     ctx = step_context(pipeline, spec.name, ledger)
-    before = len(ledger)
     ledger_parts = ledger.frame().height
     rows_in = _height(data)
     t0 = time.perf_counter()
@@ -297,16 +296,24 @@ def _apply_one(pipeline: Pipeline, spec: Any, module: Any, data: Any, ledger: Le
         exc.outputs = dict(ctx.outputs)  # the runner writes failure cases beside the output folder
         raise
     seconds = time.perf_counter() - t0
-    added = len(ledger) - before
-    rows_out = _height(data)
-    if rows_in - rows_out != added:
+    facts, timing = step_record(spec, ctx.facts, rows_in, _height(data), ledger.frame().slice(ledger_parts), seconds)
+    return data, (facts, timing, dict(ctx.outputs))
+
+
+def step_record(
+    spec: Any, facts: dict[str, Any], rows_in: int, rows_out: int, added: pl.DataFrame, seconds: float
+) -> tuple[StepFacts, StepTiming]:
+    """A step's facts and timing, after checking that the rows it removed are exactly the rows it
+    set aside (``added``: its new ledger rows). Every engine's way of running a step ends here."""
+    if rows_in - rows_out != added.height:
         raise AssertionError(
-            f"step `{spec.name}` removed {rows_in - rows_out} rows but set aside {added}; this is a bug in prep."
+            f"step `{spec.name}` removed {rows_in - rows_out} rows but set aside {added.height}; this is a bug in prep."
         )
-    new = ledger.frame().slice(ledger_parts)
-    counts = dict(sorted((r, n) for r, n in new.group_by("reason").len().iter_rows()))
-    facts = StepFacts(name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=rows_out, set_aside=counts, facts=dict(ctx.facts))
-    return data, (facts, StepTiming(spec.name, rows_in, rows_out, seconds), dict(ctx.outputs))
+    counts = dict(sorted((r, n) for r, n in added.group_by("reason").len().iter_rows()))
+    step_facts = StepFacts(
+        name=spec.name, params=to_plain(spec.config), rows_in=rows_in, rows_out=rows_out, set_aside=counts, facts=dict(facts)
+    )
+    return step_facts, StepTiming(spec.name, rows_in, rows_out, seconds)
 
 
 def run_pipeline(

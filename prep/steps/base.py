@@ -15,14 +15,20 @@ contain personal data (counts and class names are fine, texts are not).
 Extra output tables (e.g. schema failure cases) go to ``ctx.add_output(name, frame)``.
 
 A step whose decision needs the whole table but only a little of each row (``exact_duplicates``,
-``rare_classes``) may also split ``apply`` in three, so that the Dask engine can run the row-local
-parts on the workers and send only the keys to the client::
+``near_duplicates``, ``schema``, ``rare_classes``) may also split ``apply`` in three, so that the
+Dask engine can run the row-local parts on the workers and send only the keys to the client::
 
     KEYED = True
     def keys(part, config, ctx, *, compact: bool) -> pl.DataFrame   # row-local: one row per row,
         # the provenance columns and what the decision needs; ``compact``: texts as digests
+        # (prep.text.digest_exprs)
     def decide(keys, config, ctx) -> RowPlan    # the whole table's keys: ledger, facts, outputs
     # apply(table) == RowPlan.carry_out(table) of decide(keys(table, compact=False))
+    # (``schema`` keeps its own apply, pandera on the whole table, and is tested equal)
+
+Optional: ``can_key(config, ctx) -> bool`` (False: the engine collects the table instead), and
+``FETCHES_TEXTS = True`` with ``decide(..., fetch=None)`` and ``fetch_texts(part, config, ctx,
+rows)`` for a decision that needs the texts of a few rows (``near_duplicates``).
 """
 
 from __future__ import annotations
