@@ -394,6 +394,34 @@ def raise_with_failure_cases(out: Path, exc: DataError) -> None:
     raise exc
 
 
+def split_key_columns(pipeline: Pipeline, columns: list[str]) -> list[str]:
+    """The columns the split is decided from: ``row_id``, the stratify and group columns, and the
+    helper columns ``_train_only`` (rare classes kept for train) and ``_cluster`` (near-duplicate
+    clusters, which stay in one split), those of them that ``columns`` holds. No text column."""
+    wanted = ["row_id", pipeline.split.stratify, pipeline.split.group, "_train_only", "_cluster"]
+    keys: list[str] = []
+    for column in wanted:
+        if column and column in columns and column not in keys:
+            keys.append(column)
+    return keys
+
+
+def decide_split(pipeline: Pipeline, keys: pl.DataFrame):
+    """The pipeline's split (:func:`prep.split.assign_splits`) of the rows of ``keys``, which holds
+    :func:`split_key_columns` in table order. Both engines decide the split here."""
+    from prep.split import assign_splits
+
+    return assign_splits(
+        keys,
+        fractions=pipeline.split.fractions,
+        seed=pipeline.split.seed,
+        stratify=pipeline.split.stratify,
+        group=pipeline.split.group,
+        links=("_cluster",),  # near-duplicate clusters (action: mark or set_aside) stay in one split
+        history=pipeline.folder / pipeline.split.history if pipeline.split.history else None,  # stable splits
+    )
+
+
 def finish_run(
     pipeline: Pipeline,
     *,
@@ -411,28 +439,29 @@ def finish_run(
     started_at: str,
     report: Reporter = _quiet,
     engine: str = "local",
+    split: Any = None,
+    split_seconds: float = 0.0,
 ) -> RunResult:
     """Split the cleaned ``table``, run the after-split steps, check the accounting, write everything.
 
-    Shared by both engines (the Dask engine calls it with the table it collected), so the
-    writing always happens here, on the client, through :class:`prep.write.OutputFolder`.
+    Shared by both engines, so the writing always happens here, on the client, through
+    :class:`prep.write.OutputFolder`. The local engine passes the cleaned table; the Dask engine
+    decides the split from the key columns on the client (:func:`decide_split`) and passes the
+    rows of each split as ``table`` (a dict of three frames) with that decision as ``split``.
     """
     from prep.card import build_card, write_card_files
-    from prep.split import assign_splits, split_tables
+    from prep.split import split_tables
 
     t0 = time.perf_counter()
-    split = assign_splits(
-        table,
-        fractions=pipeline.split.fractions,
-        seed=pipeline.split.seed,
-        stratify=pipeline.split.stratify,
-        group=pipeline.split.group,
-        links=("_cluster",),  # near-duplicate clusters (action: mark or set_aside) stay in one split
-        history=pipeline.folder / pipeline.split.history if pipeline.split.history else None,  # stable splits
-    )
-    splits = split_tables(table, split)
-    splits = {name: splits.get(name, table.clear()).select([c for c in table.columns if not c.startswith("_")]) for name in SPLITS}
-    report("split", rows={name: f.height for name, f in splits.items()}, seconds=time.perf_counter() - t0)
+    if split is None:
+        split = decide_split(pipeline, table.select(split_key_columns(pipeline, table.columns)))
+        splits = split_tables(table, split)
+        columns = table.columns
+    else:
+        splits, columns = table, next(iter(table.values())).columns
+    empty = next(iter(splits.values())).clear()
+    splits = {name: splits.get(name, empty).select([c for c in columns if not c.startswith("_")]) for name in SPLITS}
+    report("split", rows={name: f.height for name, f in splits.items()}, seconds=split_seconds + time.perf_counter() - t0)
     splits, after_facts, after_timings, after_outputs = apply_steps(pipeline, splits, ledger, report, phase="splits")
     step_facts += after_facts
     timings += after_timings

@@ -132,7 +132,7 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     monkeypatch.setattr(minhash, "signatures_by", lambda *a, **k: signed_here.append(1) or real_signatures(*a, **k))
     # Keyed steps: the client sees only their keys (provenance, label, digests), never the table:
     # it runs neither their `apply` nor their `keys` (those run on the workers). Every global step
-    # of the demo is keyed, so the table first comes to the client for the split.
+    # of the demo is keyed, so the table first comes to the client after the split, as its three splits.
     applied_here, keys_seen, fetched = [], {}, []
     _watch_keyed(monkeypatch, (exact_duplicates, near_duplicates, schema, rare_classes), applied_here, keys_seen)
     real_fetcher = dask_engine._fetcher
@@ -142,6 +142,14 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
         return lambda rows: fetched.append(len(rows)) or fetch(rows)
 
     monkeypatch.setattr(dask_engine, "_fetcher", counting_fetcher)
+    # The split is decided from its key columns alone, and the table is never collected whole:
+    # the client gets the rows of each split after the decision.
+    from prep import run as run_module
+
+    split_keys, collected = [], []
+    real_decide_split = run_module.decide_split
+    monkeypatch.setattr(run_module, "decide_split", lambda p, keys: split_keys.append(keys.schema) or real_decide_split(p, keys))
+    monkeypatch.setattr(dask_engine._Table, "collect", lambda self: collected.append(1) or pl.DataFrame())
     local, control = cluster
     control.write_text("once")
     out = tmp_path / "dask-out"
@@ -152,6 +160,8 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     assert not applied_here, f"the client ran {applied_here} on the whole table"
     assert set(keys_seen) == {"exact_duplicates", "near_duplicates", "schema", "rare_classes"}
     _assert_no_text(keys_seen)
+    assert not collected, "the client collected the whole table"
+    assert len(split_keys) == 1 and set(split_keys[0]) == {"row_id", "label", "_cluster"}, split_keys
     # Texts travel only for the rows whose pairs the search verifies exactly (the keys were signed
     # ahead on the workers, so none is fetched for signing).
     rows_in = {s["name"]: s["rows_in"] for s in json.loads((out / "card.json").read_text())["steps"]}
@@ -169,9 +179,10 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
 
 KEYED_VARIANTS = {
     "latest-merge": ("{keep: latest, time_column: opened, conflicts: set_aside}", "{policy: merge, merge_into: Other}"),
-    "earliest-train-only": (
+    "earliest-train-only": (  # and the split grouped by customer: groups, links and train-only rows at once
         "{keep: earliest, time_column: opened, conflicts: keep_first, case_sensitive: true}",
         "{policy: train_only, min_rows: 30}",
+        "split: {train: 0.8, validation: 0.1, test: 0.1, seed: 7, group: customer}",
     ),
     "first-set-aside": ("{keep: first, conflicts: majority}", "{policy: set_aside, min_rows: 40}"),
 }
@@ -184,7 +195,7 @@ def test_keyed_steps_decide_from_keys_alone(variant, demo, cluster, tmp_path, mo
     # the local engine's byte for byte, for each keep rule, conflict rule and rare-class policy.
     from prep.steps import exact_duplicates, rare_classes
 
-    exact, rare = KEYED_VARIANTS[variant]
+    exact, rare, *split = KEYED_VARIANTS[variant]
     lines = []
     for line in demo.read_text(encoding="utf-8").splitlines():
         if line.lstrip().startswith(("- near_duplicates", "- schema")):
@@ -193,6 +204,8 @@ def test_keyed_steps_decide_from_keys_alone(variant, demo, cluster, tmp_path, mo
             line = f"  - exact_duplicates: {exact}"
         if line.lstrip().startswith("- rare_classes"):
             line = f"  - rare_classes: {rare}"
+        if line.startswith("split:") and split:
+            line = split[0]
         lines.append(line)
     path = demo.with_name(f"keyed-{variant}.yaml")
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
@@ -210,6 +223,9 @@ def test_keyed_steps_decide_from_keys_alone(variant, demo, cluster, tmp_path, mo
     steps = {s["name"]: s for s in json.loads((out / "card.json").read_text())["steps"]}
     assert steps["rare_classes"]["facts"]["classes"], "no rare class: the variant tests nothing"
     assert steps["exact_duplicates"]["facts"]["groups"] > 0
+    if split:
+        card = json.loads((out / "card.json").read_text())
+        assert card["splits"]["config"]["group"] == "customer"
 
 
 def test_worker_killed_every_time_ends_in_one_line_and_keeps_the_previous_output(demo, local_out, cluster, tmp_path):
