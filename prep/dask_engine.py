@@ -44,7 +44,7 @@ How a run is spread (what runs where, and what travels to the client):
    row-local: the same result).
 4. **Split**: when the table is still on the workers, the client gathers the split's key columns
    only (:func:`prep.run.split_key_columns`: row id, class, group, ``_train_only``,
-   ``_cluster``; no text), decides with :func:`prep.run.decide_split` (the local engine's own
+   ``_cluster``; no text column unless the split is stratified or grouped by one), decides with :func:`prep.run.decide_split` (the local engine's own
    function), and each partition returns its rows of each split (:func:`_split_from_keys`).
 5. **After-split steps, audit, card and writing** run on the client over the rows of the splits in
    :func:`prep.run.finish_run`, the function the local engine calls, so the output folder is
@@ -638,11 +638,11 @@ def run_pipeline_dask(
             step_facts += sf
             timings += tm
             outputs.update(outs)
-        split, split_seconds = None, 0.0
+        cleaned, decided, split_seconds = None, None, 0.0
         if table.local is None and table.parts:
             stage[0] = "the split"
             t0 = time.perf_counter()
-            cleaned, split = _split_from_keys(client, pipeline, table)
+            decided = _split_from_keys(client, pipeline, table)
             split_seconds = time.perf_counter() - t0
         else:
             stage[0] = "collecting the table"
@@ -650,7 +650,7 @@ def run_pipeline_dask(
     return finish_run(
         pipeline, out=out, shown_out=shown_out, table=cleaned, ledger=ledger, source_facts=source_facts,
         rows_read=rows_read, card_inputs=card_inputs, step_facts=step_facts, timings=timings, outputs=outputs,
-        started=started, started_at=started_at, report=report, engine="dask", split=split,
+        started=started, started_at=started_at, report=report, engine="dask", decided=decided,
         split_seconds=split_seconds,
     )
 
@@ -667,32 +667,36 @@ def _split_task(part: pl.DataFrame, codes: pl.Series) -> tuple[pl.DataFrame, ...
     return tuple(part.filter(codes == index) for index in range(len(SPLITS)))
 
 
-def _split_from_keys(client: Any, pipeline: Pipeline, table: _Table) -> tuple[dict[str, pl.DataFrame], Any]:
+def _split_from_keys(client: Any, pipeline: Pipeline, table: _Table) -> tuple[Any, dict[str, pl.DataFrame]]:
     """Decide the split from the key columns (:func:`prep.run.split_key_columns`: row id, class,
-    group, ``_train_only``, ``_cluster``; no text) gathered from the partitions, exactly as the
-    local engine does (:func:`prep.run.decide_split` on the rows in table order); send each
-    partition its slice of the assignment, and gather the rows of each split. Returns (the three
-    split frames, the split decision)."""
+    group, ``_train_only``, ``_cluster``; no text column unless the split is stratified or grouped
+    by one) gathered from the partitions, exactly as the local engine does
+    (:func:`prep.run.decide_split` on the rows in table order); send each partition its slice of
+    the assignment (one byte per row), and gather the rows of each split. Returns (the split
+    decision, the three split frames)."""
     from prep.run import SPLITS, decide_split, split_key_columns
 
-    parts = table.parts
+    parts, table.parts = table.parts, None
     keys_columns = split_key_columns(pipeline, table.columns)
     frames = client.gather([client.submit(_select_task, part, keys_columns) for part in parts])
+    heights = [frame.height for frame in frames]
     keys = pl.concat(frames, how="vertical")
+    del frames
     split = decide_split(pipeline, keys)
+    del keys
     codes = split.assignment.replace_strict({name: i for i, name in enumerate(SPLITS)}, return_dtype=pl.UInt8)
     pieces, offset = [], 0
-    for part, frame in zip(parts, frames):
-        pieces.append(client.submit(_split_task, part, codes.slice(offset, frame.height)))
-        offset += frame.height
-    per_split: dict[str, pl.DataFrame] = {}
-    for index, name in enumerate(SPLITS):
-        chunks = client.gather([client.submit(itemgetter(index), piece) for piece in pieces])
-        per_split[name] = pl.concat(chunks, how="vertical")
-    if not table.in_use:
-        client.cancel(parts)
-    table.parts = None
-    return per_split, split
+    for index, height in enumerate(heights):
+        pieces.append(client.submit(_split_task, parts[index], codes.slice(offset, height)))
+        offset += height
+    # No reference to the partitions is kept: the scheduler frees each one once its split task
+    # has run, so a worker does not hold a partition and its three pieces until the end.
+    del parts
+    per_part = client.gather(pieces)
+    del pieces
+    # pl.concat does not copy (rechunk=False): the splits share the gathered pieces' memory.
+    splits = {name: pl.concat([p[index] for p in per_part], how="vertical") for index, name in enumerate(SPLITS)}
+    return split, splits
 
 
 def _sign_task(pipeline: Pipeline, config: Any, part: pl.DataFrame) -> Any:

@@ -28,6 +28,10 @@ from prep.steps.base import StepContext
 from prep.write import OutputFolder, dumps_json, prepare_output
 
 SPLITS = ("train", "validation", "test")
+# Helper columns the split reads: rows a step keeps for train only (rare_classes), and
+# near-duplicate clusters, which stay in one split (near_duplicates with action mark or set_aside).
+TRAIN_ONLY = "_train_only"
+CLUSTER = "_cluster"
 
 # A progress callback receives an event name and its facts; the CLI prints them, tests collect them.
 Reporter = Callable[..., None]
@@ -397,8 +401,13 @@ def raise_with_failure_cases(out: Path, exc: DataError) -> None:
 def split_key_columns(pipeline: Pipeline, columns: list[str]) -> list[str]:
     """The columns the split is decided from: ``row_id``, the stratify and group columns, and the
     helper columns ``_train_only`` (rare classes kept for train) and ``_cluster`` (near-duplicate
-    clusters, which stay in one split), those of them that ``columns`` holds. No text column."""
-    wanted = ["row_id", pipeline.split.stratify, pipeline.split.group, "_train_only", "_cluster"]
+    clusters, which stay in one split), those of them that ``columns`` holds. No text column,
+    unless the split is stratified or grouped by one."""
+    from prep.split import check_split_columns
+
+    # A missing stratify/group column is reported with the table's columns, not the keys'.
+    check_split_columns(columns, stratify=pipeline.split.stratify, group=pipeline.split.group)
+    wanted = ["row_id", pipeline.split.stratify, pipeline.split.group, TRAIN_ONLY, CLUSTER]
     keys: list[str] = []
     for column in wanted:
         if column and column in columns and column not in keys:
@@ -407,8 +416,9 @@ def split_key_columns(pipeline: Pipeline, columns: list[str]) -> list[str]:
 
 
 def decide_split(pipeline: Pipeline, keys: pl.DataFrame):
-    """The pipeline's split (:func:`prep.split.assign_splits`) of the rows of ``keys``, which holds
-    :func:`split_key_columns` in table order. Both engines decide the split here."""
+    """The pipeline's split (:func:`prep.split.assign_splits`) of the rows of ``keys``: the cleaned
+    table (local engine) or its :func:`split_key_columns` in table order (Dask engine). Both
+    engines decide the split here."""
     from prep.split import assign_splits
 
     return assign_splits(
@@ -417,7 +427,8 @@ def decide_split(pipeline: Pipeline, keys: pl.DataFrame):
         seed=pipeline.split.seed,
         stratify=pipeline.split.stratify,
         group=pipeline.split.group,
-        links=("_cluster",),  # near-duplicate clusters (action: mark or set_aside) stay in one split
+        train_only=TRAIN_ONLY,
+        links=(CLUSTER,),  # near-duplicate clusters (action: mark or set_aside) stay in one split
         history=pipeline.folder / pipeline.split.history if pipeline.split.history else None,  # stable splits
     )
 
@@ -427,7 +438,7 @@ def finish_run(
     *,
     out: Path,
     shown_out: str,
-    table: pl.DataFrame,
+    table: pl.DataFrame | None,
     ledger: Ledger,
     source_facts: list[SourceFacts],
     rows_read: int,
@@ -439,28 +450,27 @@ def finish_run(
     started_at: str,
     report: Reporter = _quiet,
     engine: str = "local",
-    split: Any = None,
+    decided: tuple[Any, dict[str, pl.DataFrame]] | None = None,
     split_seconds: float = 0.0,
 ) -> RunResult:
     """Split the cleaned ``table``, run the after-split steps, check the accounting, write everything.
 
     Shared by both engines, so the writing always happens here, on the client, through
-    :class:`prep.write.OutputFolder`. The local engine passes the cleaned table; the Dask engine
-    decides the split from the key columns on the client (:func:`decide_split`) and passes the
-    rows of each split as ``table`` (a dict of three frames) with that decision as ``split``.
+    :class:`prep.write.OutputFolder`. The local engine passes the cleaned ``table``. The Dask
+    engine decides the split from the key columns (:func:`decide_split`) and passes ``table=None``
+    and ``decided=(the split decision, the rows of each split)``, with the seconds that took.
     """
     from prep.card import build_card, write_card_files
     from prep.split import split_tables
 
     t0 = time.perf_counter()
-    if split is None:
-        split = decide_split(pipeline, table.select(split_key_columns(pipeline, table.columns)))
+    if decided is None:
+        split = decide_split(pipeline, table)
         splits = split_tables(table, split)
-        columns = table.columns
     else:
-        splits, columns = table, next(iter(table.values())).columns
-    empty = next(iter(splits.values())).clear()
-    splits = {name: splits.get(name, empty).select([c for c in columns if not c.startswith("_")]) for name in SPLITS}
+        split, splits = decided
+    columns = [c for c in splits["train"].columns if not c.startswith("_")]
+    splits = {name: splits[name].select(columns) for name in SPLITS}
     report("split", rows={name: f.height for name, f in splits.items()}, seconds=split_seconds + time.perf_counter() - t0)
     splits, after_facts, after_timings, after_outputs = apply_steps(pipeline, splits, ledger, report, phase="splits")
     step_facts += after_facts

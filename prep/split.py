@@ -312,14 +312,19 @@ def _check_fractions(fractions: Mapping[str, float]) -> list[float]:
     return wanted
 
 
-def _check_table(table: pl.DataFrame, *, stratify: str | None, group: str | None) -> None:
+def check_split_columns(columns: Sequence[str], *, stratify: str | None, group: str | None) -> None:
+    """Raise the pipeline error for a stratify or group column that ``columns`` lacks."""
     for role, column in (("stratify", stratify), ("group", group)):
-        if column is not None and column not in table.columns:
+        if column is not None and column not in columns:
             raise PipelineError(
                 f"the {role} column `{column}` is not in the table; "
-                f"the table has {', '.join(f'`{c}`' for c in table.columns)}.",
+                f"the table has {', '.join(f'`{c}`' for c in columns)}.",
                 key=f"split.{role}",
             )
+
+
+def _check_table(table: pl.DataFrame, *, stratify: str | None, group: str | None) -> None:
+    check_split_columns(table.columns, stratify=stratify, group=group)
     if "row_id" not in table.columns:
         raise DataError("The splitter needs a `row_id` column, and the table has none.")
     ids = table.get_column("row_id")

@@ -143,13 +143,29 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
 
     monkeypatch.setattr(dask_engine, "_fetcher", counting_fetcher)
     # The split is decided from its key columns alone, and the table is never collected whole:
-    # the client gets the rows of each split after the decision.
+    # the client gets the rows of each split after the decision. Until then, no frame the client
+    # gathers from the workers holds a text column.
     from prep import run as run_module
 
-    split_keys, collected = [], []
+    split_keys, collected, gathered_before_split = [], [], []
     real_decide_split = run_module.decide_split
     monkeypatch.setattr(run_module, "decide_split", lambda p, keys: split_keys.append(keys.schema) or real_decide_split(p, keys))
     monkeypatch.setattr(dask_engine._Table, "collect", lambda self: collected.append(1) or pl.DataFrame())
+    real_gather = distributed.Client.gather
+
+    def recording_gather(self, futures, *args, **kwargs):
+        result = real_gather(self, futures, *args, **kwargs)
+        if not split_keys:
+            stack = [result]
+            while stack:
+                item = stack.pop()
+                if isinstance(item, (list, tuple)):
+                    stack.extend(item)
+                elif isinstance(item, pl.DataFrame):
+                    gathered_before_split.append(item.columns)
+        return result
+
+    monkeypatch.setattr(distributed.Client, "gather", recording_gather)
     local, control = cluster
     control.write_text("once")
     out = tmp_path / "dask-out"
@@ -162,6 +178,9 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
     _assert_no_text(keys_seen)
     assert not collected, "the client collected the whole table"
     assert len(split_keys) == 1 and set(split_keys[0]) == {"row_id", "label", "_cluster"}, split_keys
+    assert gathered_before_split and {"row_id", "label", "_cluster"} in map(set, gathered_before_split)
+    texts = [c for c in gathered_before_split if {"title", "body"} & set(c)]
+    assert not texts, f"frames with text columns reached the client before the split: {texts[:3]}"
     # Texts travel only for the rows whose pairs the search verifies exactly (the keys were signed
     # ahead on the workers, so none is fetched for signing).
     rows_in = {s["name"]: s["rows_in"] for s in json.loads((out / "card.json").read_text())["steps"]}
@@ -198,7 +217,7 @@ def test_keyed_steps_decide_from_keys_alone(variant, demo, cluster, tmp_path, mo
     exact, rare, *split = KEYED_VARIANTS[variant]
     lines = []
     for line in demo.read_text(encoding="utf-8").splitlines():
-        if line.lstrip().startswith(("- near_duplicates", "- schema")):
+        if line.lstrip().startswith("- schema") or (line.lstrip().startswith("- near_duplicates") and not split):
             continue
         if line.lstrip().startswith("- exact_duplicates"):
             line = f"  - exact_duplicates: {exact}"
@@ -223,9 +242,12 @@ def test_keyed_steps_decide_from_keys_alone(variant, demo, cluster, tmp_path, mo
     steps = {s["name"]: s for s in json.loads((out / "card.json").read_text())["steps"]}
     assert steps["rare_classes"]["facts"]["classes"], "no rare class: the variant tests nothing"
     assert steps["exact_duplicates"]["facts"]["groups"] > 0
-    if split:
+    if split:  # the groups, the near-duplicate clusters and the train-only rows all shaped the split
         card = json.loads((out / "card.json").read_text())
         assert card["splits"]["config"]["group"] == "customer"
+        notes = " ".join(card["splits"]["notes"])
+        assert "went to train with their group" in notes, notes
+        assert steps["near_duplicates"]["facts"]["clusters"] > 0
 
 
 def test_worker_killed_every_time_ends_in_one_line_and_keeps_the_previous_output(demo, local_out, cluster, tmp_path):
