@@ -116,16 +116,17 @@ def cli() -> None:
     "--engine",
     type=click.Choice(["local", "dask"]),
     default=None,
-    help="local: one process (the default); dask: row-local steps run per partition on a Dask cluster, "
-    "and the duplicate, schema and rare-class steps decide from keys the workers send (needs the `dask` extra: "
-    'pip install "prep[dask]"). Overrides `engine` in the pipeline file.',
+    help="local: one process (the default); dask: the row-local steps and the near-duplicate signing run per "
+    "partition on a Dask cluster, and the duplicate, schema and rare-class steps and the split decide from keys "
+    'the workers send (needs the `dask` extra: pip install "prep[dask]", or pip install -e ".[dask]" in a clone). '
+    "Overrides `engine` in the pipeline file.",
 )
 @click.option(
     "--scheduler",
     metavar="ADDRESS",
     default=None,
-    help="With --engine dask: the address of a running Dask scheduler (tcp://host:8786); "
-    "without it a local cluster is started and closed again.",
+    help="With --engine dask (or `engine: dask` in the pipeline file): the address of a running Dask scheduler "
+    "(tcp://host:8786); without it a local cluster is started and closed again.",
 )
 @debug_option
 def run(
@@ -142,6 +143,8 @@ def run(
     loaded = _guard(debug, load_pipeline, pipeline)
     if not quiet:
         click.echo(f"prep {__version__}: {loaded.dataset} ({pipeline})", err=True)
+    if scheduler is not None and not scheduler.strip():
+        _fail(PipelineError("--scheduler needs an address such as tcp://host:8786."), debug, 2)
     if scheduler is not None and (engine or loaded.engine.name) != "dask":
         _fail(PipelineError("--scheduler needs the Dask engine: add --engine dask."), debug, 2)
     result = _guard(

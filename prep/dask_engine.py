@@ -87,6 +87,9 @@ __all__ = ["ROW_LOCAL", "MERGERS", "run_pipeline_dask", "WorkerError"]
 INSTALL_HINT = 'The Dask engine needs the `dask` extra: pip install -e ".[dask]" (or pip install "prep[dask]").'
 # Seconds to wait for a scheduler given with --scheduler (common practice, no source).
 CONNECT_TIMEOUT = "10s"
+# How long a scheduler without workers is given for a first worker to join (workers may still be
+# starting, e.g. in a batch queue); common practice, no source.
+WORKER_WAIT = "60s"
 # The test-only hook (see _test_hook): the environment variable tests set, and pytest's own.
 TEST_KILL_ENV = "PREP_DASK_TEST_KILL"
 # Fixed seed for the transient 64-bit hashes of language prefixes (only counted, never stored).
@@ -413,34 +416,110 @@ def _import_dask():
     return Client, LocalCluster
 
 
-@contextmanager
-def _client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
-    Client, LocalCluster = _import_dask()
-    if scheduler:
-        try:
-            client = Client(scheduler, timeout=CONNECT_TIMEOUT)
-        except ValueError as exc:  # an address Dask cannot parse (e.g. http://…): a usage error
-            raise PipelineError(
-                f"`{scheduler}` is not a Dask scheduler address ({exc}).",
-                hint="Give it as `dask scheduler` prints it, e.g. tcp://host:8786.",
-            ) from exc
-        except (OSError, TimeoutError) as exc:
-            raise PrepError(
-                f"Cannot reach the Dask scheduler at `{scheduler}` ({type(exc).__name__}).",
-                hint="Start it with `dask scheduler` and check the address, or leave out --scheduler to use a local cluster.",
-            ) from exc
-        with client:
-            _check_versions(client, scheduler)
-            yield client
-        return
-    from prep.lang import default_workers
+def address_problem(address: str) -> str | None:
+    """Why ``address`` is not a Dask scheduler address Dask can parse, or None."""
+    from distributed.comm.addressing import parse_address, parse_host_port
 
-    n = workers or default_workers()
-    # Worker logs stay quiet: prep reports errors itself, in one line, on the client.
-    with LocalCluster(
-        n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None, silence_logs=logging.CRITICAL
-    ) as cluster, Client(cluster) as client:
-        yield client
+    try:
+        scheme, location = parse_address(address)
+        if scheme in ("tcp", "tls"):
+            parse_host_port(location)
+        from distributed.comm.registry import get_backend
+
+        get_backend(scheme)
+    except (ValueError, TypeError) as exc:
+        return str(exc)
+    return None
+
+
+def _bad_address(scheduler: str, why: str) -> PipelineError:
+    return PipelineError(
+        f"`{scheduler}` is not a Dask scheduler address ({why}).",
+        hint="Give it as `dask scheduler` prints it, e.g. tcp://host:8786.",
+    )
+
+
+def _connect(Client: Any, scheduler: str) -> Any:
+    """A client of the scheduler at ``scheduler``, or a one-line error within about twice
+    CONNECT_TIMEOUT. Dask's own timeout covers opening the connection, not a peer that accepts it
+    and never answers (a web port, say): the client is made on a daemon thread and abandoned then."""
+    import threading
+
+    from dask.utils import parse_timedelta
+
+    result: dict[str, Any] = {}
+
+    def make() -> None:
+        try:
+            result["client"] = Client(scheduler, timeout=CONNECT_TIMEOUT)
+        except BaseException as exc:  # handed to the caller's thread
+            result["error"] = exc
+
+    thread = threading.Thread(target=make, name="prep-dask-connect", daemon=True)
+    thread.start()
+    thread.join(2 * parse_timedelta(CONNECT_TIMEOUT) + 1)
+    unreachable = "Start it with `dask scheduler` and check the address, or run without a scheduler address to use a local cluster."
+    if thread.is_alive():
+        raise PrepError(f"No Dask scheduler answered at `{scheduler}`: the connection opened but nothing replied.", hint=unreachable)
+    exc = result.get("error")
+    if exc is None:
+        return result["client"]
+    if isinstance(exc, ValueError):  # an address Dask cannot parse (e.g. http://…): a usage error
+        raise _bad_address(scheduler, str(exc)) from exc
+    if isinstance(exc, (OSError, TimeoutError)):
+        raise PrepError(f"Cannot reach the Dask scheduler at `{scheduler}` ({type(exc).__name__}).", hint=unreachable) from exc
+    if isinstance(exc, (TypeError, KeyError, AttributeError)):  # something answered, not as a scheduler does
+        raise PrepError(
+            f"`{scheduler}` answered, but not as a Dask scheduler ({type(exc).__name__}: {exc}); is it a worker's address?",
+            hint="Give the address `dask scheduler` prints, e.g. tcp://host:8786.",
+        ) from exc
+    raise exc
+
+
+def _wait_for_workers(client: Any, scheduler: str, report: Callable[..., None]) -> None:
+    """Wait up to WORKER_WAIT for a first worker, saying so; a one-line error after that."""
+    if client.scheduler_info().get("workers"):
+        return
+    report("engine", description=f"dask: the scheduler at {scheduler} has no worker yet; waiting up to {WORKER_WAIT}")
+    try:
+        client.wait_for_workers(1, timeout=WORKER_WAIT)
+    except TimeoutError as exc:
+        raise PrepError(
+            f"No Dask worker joined the scheduler at `{scheduler}` within {WORKER_WAIT}.",
+            hint=f"Start workers with `dask worker {scheduler}`.",
+        ) from exc
+
+
+@contextmanager
+def _client(scheduler: str | None, workers: int | None, report: Callable[..., None] | None = None) -> Iterator[Any]:
+    Client, LocalCluster = _import_dask()
+    # Dask's own warnings (e.g. "Couldn't gather keys, rescheduling" after a lost worker, which it
+    # recovers from) are not prep's progress lines; errors still come through, and prep reports
+    # what ends a run itself, in one line.
+    dask_logger = logging.getLogger("distributed")
+    level = dask_logger.level
+    dask_logger.setLevel(max(level, logging.ERROR))
+    try:
+        if scheduler:
+            why = address_problem(scheduler)
+            if why:
+                raise _bad_address(scheduler, why)
+            client = _connect(Client, scheduler)
+            with client:
+                _wait_for_workers(client, scheduler, report or (lambda *a, **k: None))
+                _check_versions(client, scheduler)
+                yield client
+            return
+        from prep.lang import default_workers
+
+        n = workers or default_workers()
+        # Worker logs stay quiet: prep reports errors itself, in one line, on the client.
+        with LocalCluster(
+            n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None, silence_logs=logging.CRITICAL
+        ) as cluster, Client(cluster) as client:
+            yield client
+    finally:
+        dask_logger.setLevel(level)
 
 
 def _versions() -> dict[str, str]:
@@ -552,7 +631,7 @@ def run_pipeline_dask(
         sources=tuple(s if is_url(s.path) else dataclasses.replace(s, path=s.path.absolute()) for s in pipeline.sources),
     )
     stage = ["reading the sources"]
-    with _client(scheduler, settings.workers) as client, _dask_failures(lambda: stage[0]):
+    with _client(scheduler, settings.workers, report) as client, _dask_failures(lambda: stage[0]):
         workers = len(client.scheduler_info().get("workers", {}))
         where = f"the scheduler at {scheduler}" if scheduler else "a local cluster"
         report("engine", description=f"dask: {where}, {workers} worker{'s' if workers != 1 else ''}, partitions of {partition_rows:,} rows")

@@ -139,6 +139,16 @@ class EngineSpec:
     def check(self) -> None:
         if self.scheduler is not None and not self.scheduler.strip():
             raise ConfigValueError("scheduler", "must be a scheduler address such as tcp://host:8786 (or be left out)")
+        if self.scheduler:
+            try:
+                from prep.dask_engine import address_problem
+
+                why = address_problem(self.scheduler)
+            except ImportError:  # Dask not installed: the run says which extra to install
+                why = None
+            if why:
+                raise ConfigValueError("scheduler", f"`{self.scheduler}` is not a Dask scheduler address ({why}); "
+                                                    "give it as `dask scheduler` prints it, e.g. tcp://host:8786")
         if self.workers is not None and self.workers < 1:
             raise ConfigValueError("workers", "must be 1 or more")
         if self.partition_rows < 1:

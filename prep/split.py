@@ -209,6 +209,9 @@ def assign_splits(
     present = [c for c in links if c in table.columns and table.get_column(c).null_count() < table.height]
     if present:
         own_group = group
+        # Counted before the links replace the group: a linked unit without a value is a row that
+        # shares nothing, which also covers rows whose group value occurs once.
+        own_missing = table.get_column(group).null_count() if group and group in table.columns else 0
         table = table.with_columns(linked_groups(table, [*([group] if group else []), *present]).alias(LINKED_GROUP))
         group = LINKED_GROUP
     wanted = _check_fractions(fractions)
@@ -233,8 +236,17 @@ def assign_splits(
     if history is not None:
         notes += _history_notes(rows.with_columns(assigned), units, wanted, stratify=stratify)
     if present:
-        notes = [n.replace(f"`{LINKED_GROUP}`", f"`{own_group}`" if own_group else "group") for n in notes
-                 if own_group or "were each treated as a group of their own" not in n]
+        ungrouped = f"without a `{LINKED_GROUP}` value were each treated as a group of their own."
+        notes = [
+            (f"{_rows(own_missing)} without a `{own_group}` value were each treated as a group of their own, "
+             "unless a near-duplicate cluster joined them to other rows." if own_missing else None)
+            if ungrouped in n else n.replace(f"`{LINKED_GROUP}`", f"`{own_group}`" if own_group else "group")
+            for n in notes
+        ]
+        notes = [n for n in notes if n is not None]
+        if own_missing and not any(f"without a `{own_group}` value" in n for n in notes):
+            notes.append(f"{_rows(own_missing)} without a `{own_group}` value were each treated as a group of "
+                         "their own, unless a near-duplicate cluster joined them to other rows.")
     return SplitResult(assignment=assigned.alias("split"), notes=notes)
 
 

@@ -288,6 +288,82 @@ def test_malformed_scheduler_address_is_a_usage_error(demo, tmp_path, cli_runner
     assert "Traceback" not in result.output + result.stderr
 
 
+def _one_error_line(result) -> str:
+    lines = [line for line in result.stderr.splitlines() if line.startswith("Error:")]
+    assert len(lines) == 1, result.stderr
+    assert "Traceback" not in result.output + result.stderr
+    return lines[0]
+
+
+def test_an_address_that_never_answers_is_one_line_not_a_hang(demo, tmp_path, cli_runner, monkeypatch):
+    # A port that accepts the connection and never replies (as a web port does to Dask's protocol)
+    # hung the run with no end (found by a new user on the dashboard's port).
+    import socket
+    import time
+
+    from prep import dask_engine
+
+    monkeypatch.setattr(dask_engine, "CONNECT_TIMEOUT", "1s")
+    with socket.socket() as server:
+        server.bind(("127.0.0.1", 0))
+        server.listen(8)
+        port = server.getsockname()[1]
+        t0 = time.perf_counter()
+        result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask",
+                                         "--scheduler", f"tcp://127.0.0.1:{port}"])
+        seconds = time.perf_counter() - t0
+    assert result.exit_code == 1
+    line = _one_error_line(result)
+    assert f"127.0.0.1:{port}" in line and ("No Dask scheduler answered" in line or "Cannot reach" in line), line
+    assert seconds < 30
+    assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
+
+
+def test_a_scheduler_without_workers_is_one_line_after_a_wait(demo, tmp_path, cli_runner, monkeypatch):
+    # A scheduler with no worker waited forever (found by a new user); now it waits WORKER_WAIT.
+    from prep import dask_engine
+
+    monkeypatch.setattr(dask_engine, "WORKER_WAIT", "1s")
+    with distributed.LocalCluster(n_workers=0, processes=False, dashboard_address=":0", silence_logs=50) as empty:
+        result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask",
+                                         "--scheduler", empty.scheduler_address])
+    assert result.exit_code == 1
+    line = _one_error_line(result)
+    assert f"No Dask worker joined the scheduler at `{empty.scheduler_address}` within 1s" in line, line
+    assert "has no worker yet; waiting up to 1s" in result.stderr
+
+
+def test_a_worker_address_is_named_as_not_a_scheduler(demo, cluster, tmp_path, cli_runner):
+    # Giving a worker's address ended in "unexpected TypeError ... probably a bug in prep".
+    local, _ = cluster
+    with distributed.Client(local.scheduler_address) as client:
+        worker = sorted(client.scheduler_info()["workers"])[0]
+    result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask", "--scheduler", worker])
+    assert result.exit_code == 1
+    line = _one_error_line(result)
+    assert f"`{worker}` answered, but not as a Dask scheduler" in line, line
+    assert "bug in prep" not in result.stderr
+
+
+def test_empty_scheduler_address_is_a_usage_error(demo, tmp_path, cli_runner):
+    # `--scheduler ""` silently ran a local cluster.
+    result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask", "--scheduler", ""])
+    assert result.exit_code == 2
+    assert "--scheduler needs an address" in _one_error_line(result)
+    assert not (tmp_path / "o").exists()
+
+
+def test_malformed_scheduler_in_the_pipeline_file_names_the_file_and_key(demo, cli_runner):
+    # Found by a new user: `prep check` said ok, and the run's error named neither file nor line.
+    path = demo.with_name("bad-scheduler.yaml")
+    path.write_text(demo.read_text(encoding="utf-8") + "engine: {name: dask, scheduler: garbage}\n", encoding="utf-8")
+    for command in (["check", str(path)], ["run", str(path), "--out", str(path.with_name("bad-out"))]):
+        result = cli_runner.invoke(cli, command)
+        assert result.exit_code == 2, (command, result.stderr)
+        line = _one_error_line(result)
+        assert "bad-scheduler.yaml" in line and "engine.scheduler" in line and "garbage" in line, line
+
+
 def test_scheduler_without_dask_engine_is_a_usage_error(demo, tmp_path, cli_runner):
     result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--scheduler", "tcp://127.0.0.1:9"])
     assert result.exit_code == 2

@@ -587,3 +587,26 @@ def test_row_ids_must_be_unique_and_present():
         run(pl.concat([table, table.head(2)]))
     with pytest.raises(DataError, match="1 row without a `row_id`"):
         run(table.with_columns(pl.when(pl.int_range(pl.len()) == 0).then(None).otherwise(pl.col("row_id")).alias("row_id")))
+
+
+def test_note_on_rows_without_a_group_value_counts_them_when_clusters_link_rows():
+    # With near-duplicate clusters as links, the units are connected components, and a row that
+    # shares nothing is a unit of its own whether it has no group value or a value that occurs
+    # once. The note must count only the rows without a value (found by a new user: it counted
+    # both). Rows 0-3: no customer; 4-7: a customer each, once; 8-11: one customer; 2 and 9 in a cluster.
+    table = pl.DataFrame({
+        "row_id": [f"web:{i}" for i in range(12)],
+        "label": ["access"] * 12,
+        "customer": [None] * 4 + ["c4", "c5", "c6", "c7"] + ["c8"] * 4,
+        "_cluster": [None, None, "k", None, None, None, None, None, None, "k", None, None],
+    })
+    result = run(table, grouped=True, links=("_cluster",))
+    ungrouped = [n for n in result.notes if "group of their own" in n]
+    assert ungrouped == [
+        "4 rows without a `customer` value were each treated as a group of their own, "
+        "unless a near-duplicate cluster joined them to other rows."
+    ], result.notes
+    assert not [n for n in result.notes if "_linked_group" in n]
+    # The rows the cluster joins stay together: row 2 (no customer) goes with customer c8's rows.
+    split = dict(zip(table["row_id"], result.assignment))
+    assert len({split[f"web:{i}"] for i in (2, 8, 9, 10, 11)}) == 1
