@@ -285,6 +285,16 @@ def path_problem(path: Path) -> str | None:
     return None
 
 
+def first_run_of_own_history(folder: Path, history: str, output: Any) -> bool:
+    """Whether ``split.history`` names this pipeline's own ``output`` folder and that folder does
+    not exist yet: the first run of a pipeline that keeps its splits stable, which allocates every
+    row afresh (the split notes say so) instead of failing."""
+    if urls.is_url(output) or urls.is_url(history):
+        return False
+    resolved = (folder / history).absolute()
+    return not os.path.lexists(resolved) and os.path.normpath(resolved) == os.path.normpath((folder / output).absolute())
+
+
 def _check_history(resolved: Path, written: str, fail, container: Any) -> None:
     """`split.history` must name an existing folder holding the three split files of an earlier run."""
     if not resolved.is_dir():
@@ -408,7 +418,7 @@ def load_pipeline(path: str | Path) -> Pipeline:
             f"the split history `{urls.shown_url(split.history)}` is a URL; it must be a local folder "
             "(copy the previous version's output folder to this machine first).", "split.history", data["split"], "history",
         )
-    if split.history is not None:
+    if split.history is not None and not first_run_of_own_history(folder, split.history, spec.output):
         _check_history(folder / split.history, split.history, fail, data["split"])
 
     # Steps: a list of single-key mappings, each built with its module's Config.

@@ -421,7 +421,9 @@ def decide_split(pipeline: Pipeline, keys: pl.DataFrame):
     engines decide the split here."""
     from prep.split import assign_splits
 
-    return assign_splits(
+    history = pipeline.folder / pipeline.split.history if pipeline.split.history else None  # stable splits
+    first = history is not None and not os.path.lexists(history)  # own output, first run (checked at load)
+    result = assign_splits(
         keys,
         fractions=pipeline.split.fractions,
         seed=pipeline.split.seed,
@@ -429,8 +431,14 @@ def decide_split(pipeline: Pipeline, keys: pl.DataFrame):
         group=pipeline.split.group,
         train_only=TRAIN_ONLY,
         links=(CLUSTER,),  # near-duplicate clusters (action: mark or set_aside) stay in one split
-        history=pipeline.folder / pipeline.split.history if pipeline.split.history else None,  # stable splits
+        history=None if first else history,
     )
+    if first:
+        result.notes.append(
+            f"The split history `{pipeline.split.history}` (this pipeline's own output) does not exist yet: "
+            "every row was allocated afresh; the next run keeps these rows in their splits."
+        )
+    return result
 
 
 def finish_run(

@@ -122,3 +122,29 @@ def test_pipeline_key_split_history(tmp_path):
     _write_output(tmp_path / "old2", table(3), {"desk:0": "train", "desk:1": "validation", "desk:2": "test"})
     (tmp_path / "p.yaml").write_text(base.replace("history: old", "history: old2"), encoding="utf-8")
     assert load_pipeline(tmp_path / "p.yaml").split.history == "old2"
+
+
+def test_own_output_as_history_allocates_afresh_on_the_first_run(tmp_path):
+    # README: the history may be the pipeline's own `output`. On the very first run that folder does
+    # not exist yet; that failed with "not a folder" (found by a new user). Now the first run
+    # allocates every row and says so, and the second keeps every row in its split.
+    from prep.pipeline import load_pipeline
+    from prep.run import run_pipeline
+
+    rows = "\n".join(f"ticket {i} about {'billing' if i % 2 else 'access'} number {i * 7919 % 1000}," + ("a" if i % 2 else "b")
+                     for i in range(60))
+    (tmp_path / "in.csv").write_text("text,label\n" + rows + "\n", encoding="utf-8")
+    (tmp_path / "p.yaml").write_text(
+        "dataset: d\nsources:\n  - {name: s, path: in.csv, columns: {body: text, label: label}}\n"
+        "label: label\ntext: [body]\nsplit: {train: 0.6, validation: 0.2, test: 0.2, seed: 1, history: out}\n"
+        "output: out/\n", encoding="utf-8")
+    first = run_pipeline(load_pipeline(tmp_path / "p.yaml"))
+    notes = first.card["splits"]["notes"]
+    assert any("`out` (this pipeline's own output) does not exist yet" in n for n in notes), notes
+    second = run_pipeline(load_pipeline(tmp_path / "p.yaml"))
+    assert any("60 rows kept the split they had" in n for n in second.card["splits"]["notes"]), second.card["splits"]["notes"]
+    assert second.split_rows == first.split_rows
+    # Another folder that does not exist is still an error.
+    (tmp_path / "q.yaml").write_text((tmp_path / "p.yaml").read_text().replace("history: out", "history: old"), encoding="utf-8")
+    with pytest.raises(PipelineError, match=r"split\.history.*not a folder"):
+        load_pipeline(tmp_path / "q.yaml")
