@@ -407,20 +407,6 @@ def load_pipeline(path: str | Path) -> Pipeline:
     if len(set(spec.text)) != len(spec.text):
         raise fail("a text column is listed twice.", "text", data, "text")
 
-    split = spec.split
-    stratify = split.stratify if split.stratify is not None else spec.label
-    for key_name, value in (("stratify", stratify), ("group", split.group)):
-        if value is not None and value not in canonical:
-            raise fail(f"`{value}` is not a canonical column (known: {', '.join(canonical)}).", f"split.{key_name}", data["split"], key_name if key_name in data["split"] else None)
-    split = dataclasses.replace(split, stratify=stratify)
-    if split.history is not None and urls.is_url(split.history):
-        raise fail(
-            f"the split history `{urls.shown_url(split.history)}` is a URL; it must be a local folder "
-            "(copy the previous version's output folder to this machine first).", "split.history", data["split"], "history",
-        )
-    if split.history is not None and not first_run_of_own_history(folder, split.history, spec.output):
-        _check_history(folder / split.history, split.history, fail, data["split"])
-
     # Steps: a list of single-key mappings, each built with its module's Config.
     steps: list[StepSpec] = []
     raw_steps = data.get("steps")
@@ -445,6 +431,22 @@ def load_pipeline(path: str | Path) -> Pipeline:
         except ConfigError as exc:
             raise error(exc) from None
         steps.append(StepSpec(name=name, config=config, key=f"{key}.{name}", line=line))
+
+    split = spec.split
+    stratify = split.stratify if split.stratify is not None else spec.label
+    # The split may also use the source name and the column the language step adds.
+    splittable = [*canonical, "source", *(["language"] if any(st.name == "language" for st in steps) else [])]
+    for key_name, value in (("stratify", stratify), ("group", split.group)):
+        if value is not None and value not in splittable:
+            raise fail(f"`{value}` is not a column the split can use (known: {', '.join(splittable)}).", f"split.{key_name}", data["split"], key_name if key_name in data["split"] else None)
+    split = dataclasses.replace(split, stratify=stratify)
+    if split.history is not None and urls.is_url(split.history):
+        raise fail(
+            f"the split history `{urls.shown_url(split.history)}` is a URL; it must be a local folder "
+            "(copy the previous version's output folder to this machine first).", "split.history", data["split"], "history",
+        )
+    if split.history is not None and not first_run_of_own_history(folder, split.history, spec.output):
+        _check_history(folder / split.history, split.history, fail, data["split"])
 
     output = spec.output if urls.is_url(spec.output) else folder / spec.output
     return Pipeline(

@@ -101,3 +101,15 @@ def test_gzip_and_explicit_format(tmp_path):
     assert (p.sources[0].format, p.sources[0].compression) == ("jsonl", "gzip")
     text = BASE.replace("path: desk.csv", "path: dump.txt\n    format: tsv")
     assert load_pipeline(write(tmp_path, text)).sources[0].format == "tsv"
+
+
+def test_split_may_use_the_source_and_the_language_step_column(tmp_path):
+    # Found by a new user: `group: source` and `stratify: language` were refused although both
+    # columns are in the table at the split (provenance; the language step's output).
+    grouped = BASE.replace("seed: 7}", "seed: 7, group: source}")
+    assert load_pipeline(write(tmp_path, grouped)).split.group == "source"
+    by_language = BASE.replace("  - normalise: {}\n", "  - normalise: {}\n  - language: {}\n").replace("seed: 7}", "seed: 7, stratify: language}")
+    assert load_pipeline(write(tmp_path, by_language)).split.stratify == "language"
+    # Without a language step there is no such column, and the message lists what can be used.
+    with pytest.raises(PipelineError, match=r"split\.stratify.*`language` is not a column the split can use \(known: title, body, label, source\)"):
+        load_pipeline(write(tmp_path, BASE.replace("seed: 7}", "seed: 7, stratify: language}")))
