@@ -426,9 +426,13 @@ def address_problem(address: str) -> str | None:
             parse_host_port(location)
         from distributed.comm.registry import get_backend
 
-        get_backend(scheme)
+        backend = get_backend(scheme)
     except (ValueError, TypeError) as exc:
         return str(exc)
+    try:
+        backend.get_connector()
+    except Exception as exc:  # e.g. ucx:// without its package: the transport cannot connect here
+        return f"the `{scheme}` transport cannot be used here: {type(exc).__name__}: {exc}"
     return None
 
 
@@ -442,24 +446,35 @@ def _bad_address(scheduler: str, why: str) -> PipelineError:
 def _connect(Client: Any, scheduler: str) -> Any:
     """A client of the scheduler at ``scheduler``, or a one-line error within about twice
     CONNECT_TIMEOUT. Dask's own timeout covers opening the connection, not a peer that accepts it
-    and never answers (a web port, say): the client is made on a daemon thread and abandoned then."""
+    and never answers (a web port, say): the client is made on a daemon thread, which is abandoned
+    then and closes the client itself should it still connect later."""
     import threading
 
     from dask.utils import parse_timedelta
 
     result: dict[str, Any] = {}
+    lock, abandoned = threading.Lock(), threading.Event()
 
     def make() -> None:
         try:
-            result["client"] = Client(scheduler, timeout=CONNECT_TIMEOUT)
+            client = Client(scheduler, timeout=CONNECT_TIMEOUT, set_as_default=False)
         except BaseException as exc:  # handed to the caller's thread
             result["error"] = exc
+            return
+        with lock:
+            if not abandoned.is_set():
+                result["client"] = client
+                return
+        client.close()  # connected after the caller gave up
 
     thread = threading.Thread(target=make, name="prep-dask-connect", daemon=True)
     thread.start()
     thread.join(2 * parse_timedelta(CONNECT_TIMEOUT) + 1)
+    with lock:
+        if "client" not in result and "error" not in result:
+            abandoned.set()
     unreachable = "Start it with `dask scheduler` and check the address, or run without a scheduler address to use a local cluster."
-    if thread.is_alive():
+    if abandoned.is_set():
         raise PrepError(f"No Dask scheduler answered at `{scheduler}`: the connection opened but nothing replied.", hint=unreachable)
     exc = result.get("error")
     if exc is None:
@@ -468,12 +483,16 @@ def _connect(Client: Any, scheduler: str) -> Any:
         raise _bad_address(scheduler, str(exc)) from exc
     if isinstance(exc, (OSError, TimeoutError)):
         raise PrepError(f"Cannot reach the Dask scheduler at `{scheduler}` ({type(exc).__name__}).", hint=unreachable) from exc
-    if isinstance(exc, (TypeError, KeyError, AttributeError)):  # something answered, not as a scheduler does
+    from distributed.comm.addressing import parse_address
+
+    if parse_address(scheduler)[0] in ("tcp", "tls") and isinstance(exc, (TypeError, KeyError, AttributeError)):
+        # Something answered over TCP, but not as a scheduler does (a worker's address: Dask calls
+        # the scheduler's identity with arguments a worker's does not take).
         raise PrepError(
             f"`{scheduler}` answered, but not as a Dask scheduler ({type(exc).__name__}: {exc}); is it a worker's address?",
             hint="Give the address `dask scheduler` prints, e.g. tcp://host:8786.",
         ) from exc
-    raise exc
+    raise PrepError(f"Cannot connect to the Dask scheduler at `{scheduler}` ({type(exc).__name__}: {exc}).") from exc
 
 
 def _wait_for_workers(client: Any, scheduler: str, report: Callable[..., None]) -> None:
@@ -496,10 +515,7 @@ def _client(scheduler: str | None, workers: int | None, report: Callable[..., No
     # Dask's own warnings (e.g. "Couldn't gather keys, rescheduling" after a lost worker, which it
     # recovers from) are not prep's progress lines; errors still come through, and prep reports
     # what ends a run itself, in one line.
-    dask_logger = logging.getLogger("distributed")
-    level = dask_logger.level
-    dask_logger.setLevel(max(level, logging.ERROR))
-    try:
+    with _quiet_dask_logs():
         if scheduler:
             why = address_problem(scheduler)
             if why:
@@ -518,8 +534,23 @@ def _client(scheduler: str | None, workers: int | None, report: Callable[..., No
             n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None, silence_logs=logging.CRITICAL
         ) as cluster, Client(cluster) as client:
             yield client
+
+
+@contextmanager
+def _quiet_dask_logs() -> Iterator[None]:
+    """Dask's loggers (``distributed`` and its children, several of which set their own level)
+    at ERROR or above while prep runs; their levels are restored afterwards."""
+    names = ["distributed", *(n for n, lg in logging.root.manager.loggerDict.items()
+                               if n.startswith("distributed.") and isinstance(lg, logging.Logger))]
+    saved = {name: logging.getLogger(name).level for name in names}
+    try:
+        for name, level in saved.items():
+            if level < logging.ERROR:
+                logging.getLogger(name).setLevel(logging.ERROR)
+        yield
     finally:
-        dask_logger.setLevel(level)
+        for name, level in saved.items():
+            logging.getLogger(name).setLevel(level)
 
 
 def _versions() -> dict[str, str]:
@@ -610,7 +641,7 @@ def run_pipeline_dask(
     partition_rows: int | None = None,
 ):
     """Run ``pipeline`` on a Dask cluster; the arguments and result are those of :func:`prep.run.run_pipeline`."""
-    from prep.run import _quiet, finish_run, raise_with_failure_cases, step_phase
+    from prep.run import _quiet, finish_run, raise_with_failure_cases, split_history, step_phase
     from prep.write import prepare_output
 
     report = report or _quiet
@@ -623,6 +654,7 @@ def run_pipeline_dask(
     out = Path(out) if out is not None else pipeline.output
     shown_out = str(out)
     prepare_output(out, [s.path for s in pipeline.sources] + [pipeline.path], shown=shown_out, force=force)
+    split_history(pipeline, out)  # a missing history folder stops the run before any work
 
     # Workers see absolute paths (their working folder is not the client's); messages use path_text.
     remote_pipeline = dataclasses.replace(
@@ -721,7 +753,7 @@ def run_pipeline_dask(
         if table.local is None and table.parts:
             stage[0] = "the split"
             t0 = time.perf_counter()
-            decided = _split_from_keys(client, pipeline, table)
+            decided = _split_from_keys(client, pipeline, table, out)
             split_seconds = time.perf_counter() - t0
         else:
             stage[0] = "collecting the table"
@@ -746,7 +778,7 @@ def _split_task(part: pl.DataFrame, codes: pl.Series) -> tuple[pl.DataFrame, ...
     return tuple(part.filter(codes == index) for index in range(len(SPLITS)))
 
 
-def _split_from_keys(client: Any, pipeline: Pipeline, table: _Table) -> tuple[Any, dict[str, pl.DataFrame]]:
+def _split_from_keys(client: Any, pipeline: Pipeline, table: _Table, out: Path) -> tuple[Any, dict[str, pl.DataFrame]]:
     """Decide the split from the key columns (:func:`prep.run.split_key_columns`: row id, class,
     group, ``_train_only``, ``_cluster``; no text column unless the split is stratified or grouped
     by one) gathered from the partitions, exactly as the local engine does
@@ -761,7 +793,7 @@ def _split_from_keys(client: Any, pipeline: Pipeline, table: _Table) -> tuple[An
     heights = [frame.height for frame in frames]
     keys = pl.concat(frames, how="vertical")
     del frames
-    split = decide_split(pipeline, keys)
+    split = decide_split(pipeline, keys, out)
     del keys
     codes = split.assignment.replace_strict({name: i for i, name in enumerate(SPLITS)}, return_dtype=pl.UInt8)
     pieces, offset = [], 0

@@ -292,7 +292,10 @@ def first_run_of_own_history(folder: Path, history: str, output: Any) -> bool:
     if urls.is_url(output) or urls.is_url(history):
         return False
     resolved = (folder / history).absolute()
-    return not os.path.lexists(resolved) and os.path.normpath(resolved) == os.path.normpath((folder / output).absolute())
+    # Its parent must exist (`gone/../out` can never exist); the run checks it against the folder it
+    # actually writes (prep.run.split_history), which --out may change.
+    return (not os.path.lexists(resolved) and os.path.isdir(resolved.parent)
+            and os.path.realpath(resolved) == os.path.realpath((folder / output).absolute()))
 
 
 def _check_history(resolved: Path, written: str, fail, container: Any) -> None:

@@ -19,7 +19,7 @@ import polars as pl
 
 from prep import __version__
 from prep.config import to_plain
-from prep.errors import DataError
+from prep.errors import DataError, PipelineError
 from prep.facts import RunFacts, SourceFacts, SplitFileFacts, StepFacts
 from prep.ledger import Ledger, Reason, check_accounting
 from prep.pipeline import PROVENANCE_COLUMNS, Pipeline, Source
@@ -362,6 +362,7 @@ def run_pipeline(
     shown_out = str(out)
     inputs = [s.path for s in pipeline.sources] + [pipeline.path]
     prepare_output(out, inputs, shown=shown_out, force=force)
+    split_history(pipeline, out)  # a missing history folder stops the run before any work
 
     ledger = Ledger()
     table, source_facts = read_sources(pipeline, ledger, report)
@@ -415,14 +416,32 @@ def split_key_columns(pipeline: Pipeline, columns: list[str]) -> list[str]:
     return keys
 
 
-def decide_split(pipeline: Pipeline, keys: pl.DataFrame):
+def split_history(pipeline: Pipeline, out: Path) -> tuple[Path | None, bool]:
+    """(the split history folder to read or None, whether this is the first run of a pipeline whose
+    history is its own output). A history folder that does not exist is accepted only when it is
+    the folder this run writes (``out``, symlinks resolved): then every row is allocated afresh.
+    Both engines call this before reading anything, and again when they split."""
+    if not pipeline.split.history:
+        return None, False
+    history = pipeline.folder / pipeline.split.history
+    if os.path.lexists(history):
+        return history, False
+    if os.path.isdir(history.parent) and os.path.realpath(history) == os.path.realpath(out):
+        return None, True
+    raise PipelineError(
+        f"the split history `{pipeline.split.history}` does not exist. Only the pipeline's own output may be "
+        f"missing (on its first run), and this run writes to `{out}`.",
+        file=str(pipeline.path), key="split.history",
+    )
+
+
+def decide_split(pipeline: Pipeline, keys: pl.DataFrame, out: Path):
     """The pipeline's split (:func:`prep.split.assign_splits`) of the rows of ``keys``: the cleaned
-    table (local engine) or its :func:`split_key_columns` in table order (Dask engine). Both
-    engines decide the split here."""
+    table (local engine) or its :func:`split_key_columns` in table order (Dask engine), for a run
+    writing to ``out``. Both engines decide the split here."""
     from prep.split import assign_splits
 
-    history = pipeline.folder / pipeline.split.history if pipeline.split.history else None  # stable splits
-    first = history is not None and not os.path.lexists(history)  # own output, first run (checked at load)
+    history, first = split_history(pipeline, out)  # stable splits
     result = assign_splits(
         keys,
         fractions=pipeline.split.fractions,
@@ -431,7 +450,7 @@ def decide_split(pipeline: Pipeline, keys: pl.DataFrame):
         group=pipeline.split.group,
         train_only=TRAIN_ONLY,
         links=(CLUSTER,),  # near-duplicate clusters (action: mark or set_aside) stay in one split
-        history=None if first else history,
+        history=history,
     )
     if first:
         result.notes.append(
@@ -473,7 +492,7 @@ def finish_run(
 
     t0 = time.perf_counter()
     if decided is None:
-        split = decide_split(pipeline, table)
+        split = decide_split(pipeline, table, out)
         splits = split_tables(table, split)
     else:
         split, splits = decided

@@ -149,7 +149,7 @@ def test_dask_engine_equals_local_engine_with_a_worker_killed_mid_run(demo, loca
 
     split_keys, collected, gathered_before_split = [], [], []
     real_decide_split = run_module.decide_split
-    monkeypatch.setattr(run_module, "decide_split", lambda p, keys: split_keys.append(keys.schema) or real_decide_split(p, keys))
+    monkeypatch.setattr(run_module, "decide_split", lambda p, keys, out: split_keys.append(keys.schema) or real_decide_split(p, keys, out))
     monkeypatch.setattr(dask_engine._Table, "collect", lambda self: collected.append(1) or pl.DataFrame())
     real_gather = distributed.Client.gather
 
@@ -343,6 +343,34 @@ def test_a_worker_address_is_named_as_not_a_scheduler(demo, cluster, tmp_path, c
     line = _one_error_line(result)
     assert f"`{worker}` answered, but not as a Dask scheduler" in line, line
     assert "bug in prep" not in result.stderr
+
+
+def test_dask_warnings_are_silenced_while_prep_runs_and_restored_after():
+    # Found in review: raising only the `distributed` logger left `distributed.client` (its own
+    # level, WARNING) printing "Couldn't gather keys, rescheduling" into prep's stderr.
+    import logging
+
+    from prep import dask_engine
+
+    client_logger = logging.getLogger("distributed.client")
+    before = client_logger.level
+    assert client_logger.isEnabledFor(logging.WARNING)
+    with dask_engine._quiet_dask_logs():
+        assert not client_logger.isEnabledFor(logging.WARNING)
+        assert not logging.getLogger("distributed.worker").isEnabledFor(logging.WARNING)
+        assert client_logger.isEnabledFor(logging.ERROR)
+    assert client_logger.level == before and client_logger.isEnabledFor(logging.WARNING)
+
+
+def test_an_unusable_transport_is_a_usage_error(demo, tmp_path, cli_runner):
+    # ucx:// without its package ended in a misleading "not a scheduler" and a traceback at exit.
+    from prep.dask_engine import address_problem
+
+    if address_problem("ucx://127.0.0.1:1") is None:
+        pytest.skip("the ucx transport is installed here")
+    result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask", "--scheduler", "ucx://127.0.0.1:1"])
+    assert result.exit_code == 2
+    assert "the `ucx` transport cannot be used here" in _one_error_line(result)
 
 
 def test_empty_scheduler_address_is_a_usage_error(demo, tmp_path, cli_runner):

@@ -148,3 +148,24 @@ def test_own_output_as_history_allocates_afresh_on_the_first_run(tmp_path):
     (tmp_path / "q.yaml").write_text((tmp_path / "p.yaml").read_text().replace("history: out", "history: old"), encoding="utf-8")
     with pytest.raises(PipelineError, match=r"split\.history.*not a folder"):
         load_pipeline(tmp_path / "q.yaml")
+
+
+def test_own_output_history_with_another_out_or_an_impossible_path_is_refused(tmp_path, cli_runner):
+    # Found in review: with --out elsewhere, every run counted as the first (the history folder never
+    # appears), and `gone/../out` names a folder that can never exist. Both are refused, in one line,
+    # before any work.
+    from prep.cli import cli
+    from prep.pipeline import load_pipeline
+
+    (tmp_path / "in.csv").write_text("text,label\nhello there,a\nsomething else,b\n", encoding="utf-8")
+    base = ("dataset: d\nsources:\n  - {name: s, path: in.csv, columns: {body: text, label: label}}\n"
+            "label: label\ntext: [body]\nsplit: {train: 0.6, validation: 0.2, test: 0.2, seed: 1, history: out}\n"
+            "output: out/\n")
+    (tmp_path / "p.yaml").write_text(base, encoding="utf-8")
+    result = cli_runner.invoke(cli, ["run", str(tmp_path / "p.yaml"), "--out", str(tmp_path / "elsewhere")])
+    assert result.exit_code == 2, result.stderr
+    assert "`split.history`: the split history `out` does not exist" in result.stderr and "elsewhere" in result.stderr
+    assert not (tmp_path / "elsewhere").exists() or not any((tmp_path / "elsewhere").iterdir())
+    (tmp_path / "q.yaml").write_text(base.replace("history: out", "history: gone/../out"), encoding="utf-8")
+    with pytest.raises(PipelineError, match=r"split\.history.*not a folder"):
+        load_pipeline(tmp_path / "q.yaml")
