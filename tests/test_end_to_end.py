@@ -273,3 +273,33 @@ def test_an_earlier_read_only_steps_error_wins_over_a_later_steps_error(small_pi
         monkeypatch.setattr(run_module, "_overlap_possible", lambda overlap=overlap: overlap)
         with pytest.raises(DataError, match="read-only step"):
             run_module.apply_steps(pipeline, splits, Ledger(), phase="splits")
+
+
+def test_demo_split_stratified_by_language_runs_and_balances(tmp_path):
+    # The split may stratify by the column the language step adds (see README "Splitting"): each
+    # language's rows are spread over the splits in proportion (largest remainder per stratum).
+    import shutil
+
+    import polars as pl
+
+    from prep.pipeline import load_pipeline
+    from prep.run import run_pipeline
+
+    repo = Path(__file__).resolve().parent.parent
+    shutil.copytree(repo / "sample_inputs" / "exports", tmp_path / "sample_inputs" / "exports")
+    shutil.copytree(repo / "schemas", tmp_path / "schemas")
+    text = (repo / "sample_inputs" / "pipeline.yaml").read_text(encoding="utf-8")
+    lines = [line for line in text.splitlines() if not line.lstrip().startswith(("- baseline", "- suspect_labels"))]
+    text = "\n".join(lines).replace("seed: 7}", "seed: 7, stratify: language}") + "\n"
+    path = tmp_path / "sample_inputs" / "pipeline.yaml"
+    path.write_text(text, encoding="utf-8")
+    result = run_pipeline(load_pipeline(path))
+    frames = {s: pl.read_parquet(result.output / f"{s}.parquet") for s in ("train", "validation", "test")}
+    per_language = pl.concat([f.select("language", pl.lit(s).alias("split")) for s, f in frames.items()])
+    counts = per_language.group_by("language", "split").len().pivot("split", index="language", values="len").fill_null(0)
+    for row in counts.iter_rows(named=True):
+        n = row["train"] + row.get("validation", 0) + row.get("test", 0)
+        # The largest-remainder (Hamilton) method gives every split the floor or the ceiling of its
+        # exact quota n x fraction (0.8/0.1/0.1), so each is within one row of it.
+        for split, fraction in (("train", 0.8), ("validation", 0.1), ("test", 0.1)):
+            assert abs(row.get(split, 0) - n * fraction) < 1 + 1e-9, (row, split)

@@ -610,3 +610,20 @@ def test_note_on_rows_without_a_group_value_counts_them_when_clusters_link_rows(
     # The rows the cluster joins stay together: row 2 (no customer) goes with customer c8's rows.
     split = dict(zip(table["row_id"], result.assignment))
     assert len({split[f"web:{i}"] for i in (2, 8, 9, 10, 11)}) == 1
+
+
+def test_note_on_rows_without_a_group_value_when_clusters_join_all_of_them():
+    # Every row without a customer is joined to other rows by a cluster, so no linked unit is
+    # "without a value"; the note must still count the rows that had no customer (the branch that
+    # adds the note when the linked count has none).
+    table = pl.DataFrame({
+        "row_id": [f"web:{i}" for i in range(8)],
+        "label": ["access"] * 8,
+        "customer": [None, None, "c2", "c2", "c4", "c4", "c6", "c6"],
+        "_cluster": ["k", "j", "k", None, "j", None, None, None],
+    })
+    result = run(table, grouped=True, links=("_cluster",))
+    assert [n for n in result.notes if "group of their own" in n] == [
+        "2 rows without a `customer` value were each treated as a group of their own, "
+        "unless a near-duplicate cluster joined them to other rows."
+    ], result.notes
