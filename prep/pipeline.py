@@ -438,7 +438,8 @@ def load_pipeline(path: str | Path) -> Pipeline:
     split = spec.split
     stratify = split.stratify if split.stratify is not None else spec.label
     # The split may also use the source name and the column the language step adds.
-    splittable = [*canonical, "source", *(["language"] if any(st.name == "language" for st in steps) else [])]
+    added = ["source", *(["language"] if any(st.name == "language" for st in steps) else [])]
+    splittable = [*canonical, *(c for c in added if c not in canonical)]
     for key_name, value in (("stratify", stratify), ("group", split.group)):
         if value is not None and value not in splittable:
             raise fail(f"`{value}` is not a column the split can use (known: {', '.join(splittable)}).", f"split.{key_name}", data["split"], key_name if key_name in data["split"] else None)
