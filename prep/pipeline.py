@@ -285,17 +285,14 @@ def path_problem(path: Path) -> str | None:
     return None
 
 
-def first_run_of_own_history(folder: Path, history: str, output: Any) -> bool:
-    """Whether ``split.history`` names this pipeline's own ``output`` folder and that folder does
-    not exist yet: the first run of a pipeline that keeps its splits stable, which allocates every
-    row afresh (the split notes say so) instead of failing."""
-    if urls.is_url(output) or urls.is_url(history):
-        return False
-    resolved = (folder / history).absolute()
-    # Its parent must exist (`gone/../out` can never exist); the run checks it against the folder it
-    # actually writes (prep.run.split_history), which --out may change.
-    return (not os.path.lexists(resolved) and os.path.isdir(resolved.parent)
-            and os.path.realpath(resolved) == os.path.realpath((folder / output).absolute()))
+def missing_output_history(history: Path, output: Path) -> bool:
+    """Whether the split history ``history`` is the output folder ``output`` (symlinks resolved)
+    and does not exist yet: the first run of a pipeline that keeps its splits stable, which
+    allocates every row afresh (the split notes say so) instead of failing. Its parent must exist
+    (`gone/../out` can never exist). Checked at load against the file's ``output`` and by the run
+    against the folder it actually writes (``--out`` may change it: prep.run.split_history)."""
+    return (not os.path.lexists(history) and os.path.isdir(Path(history).absolute().parent)
+            and os.path.realpath(history) == os.path.realpath(output))
 
 
 def _check_history(resolved: Path, written: str, fail, container: Any) -> None:
@@ -449,8 +446,10 @@ def load_pipeline(path: str | Path) -> Pipeline:
             f"the split history `{urls.shown_url(split.history)}` is a URL; it must be a local folder "
             "(copy the previous version's output folder to this machine first).", "split.history", data["split"], "history",
         )
-    if split.history is not None and not first_run_of_own_history(folder, split.history, spec.output):
-        _check_history(folder / split.history, split.history, fail, data["split"])
+    if split.history is not None:
+        # The pipeline's own output may be missing on its first run.
+        if urls.is_url(spec.output) or not missing_output_history(folder / split.history, folder / spec.output):
+            _check_history(folder / split.history, split.history, fail, data["split"])
 
     output = spec.output if urls.is_url(spec.output) else folder / spec.output
     return Pipeline(

@@ -423,10 +423,12 @@ def split_history(pipeline: Pipeline, out: Path) -> tuple[Path | None, bool]:
     Both engines call this before reading anything, and again when they split."""
     if not pipeline.split.history:
         return None, False
+    from prep.pipeline import missing_output_history
+
     history = pipeline.folder / pipeline.split.history
     if os.path.lexists(history):
         return history, False
-    if os.path.isdir(history.parent) and os.path.realpath(history) == os.path.realpath(out):
+    if missing_output_history(history, out):
         return None, True
     raise PipelineError(
         f"the split history `{pipeline.split.history}` does not exist. Only the pipeline's own output may be "

@@ -236,17 +236,19 @@ def assign_splits(
     if history is not None:
         notes += _history_notes(rows.with_columns(assigned), units, wanted, stratify=stratify)
     if present:
+        # The linked units' "without a value" note counts rows that share nothing; it is replaced
+        # (in place, or at the end when no such unit is left) by the count of the own group's nulls.
         ungrouped = f"without a `{LINKED_GROUP}` value were each treated as a group of their own."
-        notes = [
-            (f"{_rows(own_missing)} without a `{own_group}` value were each treated as a group of their own, "
-             "unless a near-duplicate cluster joined them to other rows." if own_missing else None)
-            if ungrouped in n else n.replace(f"`{LINKED_GROUP}`", f"`{own_group}`" if own_group else "group")
-            for n in notes
-        ]
-        notes = [n for n in notes if n is not None]
-        if own_missing and not any(f"without a `{own_group}` value" in n for n in notes):
-            notes.append(f"{_rows(own_missing)} without a `{own_group}` value were each treated as a group of "
-                         "their own, unless a near-duplicate cluster joined them to other rows.")
+        own_note = (f"{_rows(own_missing)} without a `{own_group}` value were each treated as a group of their "
+                    "own, unless a near-duplicate cluster joined them to other rows.") if own_missing else None
+        kept = []
+        for note in notes:
+            if ungrouped not in note:
+                kept.append(note.replace(f"`{LINKED_GROUP}`", f"`{own_group}`" if own_group else "group"))
+            elif own_note:
+                kept.append(own_note)
+                own_note = None
+        notes = kept + ([own_note] if own_note else [])
     return SplitResult(assignment=assigned.alias("split"), notes=notes)
 
 
