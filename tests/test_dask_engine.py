@@ -267,15 +267,20 @@ def test_worker_killed_every_time_ends_in_one_line_and_keeps_the_previous_output
     assert sorted(p.name for p in out.parent.iterdir()) == ["out"]  # no temporary folder left behind
 
 
+def _one_error_line(result) -> str:
+    lines = [line for line in result.stderr.splitlines() if line.startswith("Error:")]
+    assert len(lines) == 1, result.stderr
+    assert "Traceback" not in result.output + result.stderr
+    return lines[0]
+
+
 def test_unreachable_scheduler_is_one_line_exit_1(demo, tmp_path, cli_runner, monkeypatch):
     from prep import dask_engine
 
     monkeypatch.setattr(dask_engine, "CONNECT_TIMEOUT", "1s")
     result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask", "--scheduler", "tcp://127.0.0.1:9"])
     assert result.exit_code == 1
-    lines = [line for line in result.stderr.splitlines() if line.startswith("Error:")]
-    assert len(lines) == 1 and "Cannot reach the Dask scheduler at `tcp://127.0.0.1:9`" in lines[0]
-    assert "Traceback" not in result.output + result.stderr
+    assert "Cannot reach the Dask scheduler at `tcp://127.0.0.1:9`" in _one_error_line(result)
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
 
 
@@ -283,16 +288,7 @@ def test_malformed_scheduler_address_is_a_usage_error(demo, tmp_path, cli_runner
     # A scheme Dask has no transport for is a mistake in the command line (exit 2), not a network failure.
     result = cli_runner.invoke(cli, ["run", str(demo), "--out", str(tmp_path / "o"), "--engine", "dask", "--scheduler", "http://127.0.0.1:9"])
     assert result.exit_code == 2
-    lines = [line for line in result.stderr.splitlines() if line.startswith("Error:")]
-    assert len(lines) == 1 and "`http://127.0.0.1:9` is not a Dask scheduler address" in lines[0]
-    assert "Traceback" not in result.output + result.stderr
-
-
-def _one_error_line(result) -> str:
-    lines = [line for line in result.stderr.splitlines() if line.startswith("Error:")]
-    assert len(lines) == 1, result.stderr
-    assert "Traceback" not in result.output + result.stderr
-    return lines[0]
+    assert "`http://127.0.0.1:9` is not a Dask scheduler address" in _one_error_line(result)
 
 
 def test_an_address_that_never_answers_is_one_line_not_a_hang(demo, tmp_path, cli_runner, monkeypatch):

@@ -280,12 +280,7 @@ def test_demo_split_stratified_by_language_runs_and_balances(tmp_path):
     # language's rows are spread over the splits in proportion (largest remainder per stratum).
     import shutil
 
-    import polars as pl
-
-    from prep.pipeline import load_pipeline
-    from prep.run import run_pipeline
-
-    repo = Path(__file__).resolve().parent.parent
+    repo = DEMO_PIPELINE.parent.parent
     shutil.copytree(repo / "sample_inputs" / "exports", tmp_path / "sample_inputs" / "exports")
     shutil.copytree(repo / "schemas", tmp_path / "schemas")
     text = (repo / "sample_inputs" / "pipeline.yaml").read_text(encoding="utf-8")
@@ -294,7 +289,8 @@ def test_demo_split_stratified_by_language_runs_and_balances(tmp_path):
     path = tmp_path / "sample_inputs" / "pipeline.yaml"
     path.write_text(text, encoding="utf-8")
     result = run_pipeline(load_pipeline(path))
-    frames = {s: pl.read_parquet(result.output / f"{s}.parquet") for s in ("train", "validation", "test")}
+    frames = {s: pl.read_parquet(result.output / f"{s}.parquet") for s in SPLITS}
+    assert sum(f.height for f in frames.values()) + pl.read_parquet(result.output / "set_aside.parquet").height == result.rows_read
     per_language = pl.concat([f.select("language", pl.lit(s).alias("split")) for s, f in frames.items()])
     counts = per_language.group_by("language", "split").len().pivot("split", index="language", values="len").fill_null(0)
     for row in counts.iter_rows(named=True):
